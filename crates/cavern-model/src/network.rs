@@ -1,0 +1,517 @@
+//! Physical description of a network and its translation into a master equation.
+//!
+//! All parameters are angular frequencies or rates (rad per time unit, ħ = 1); rates are energy
+//! (population) decay rates. The unit layer of the application applies 2π to ordinary
+//! frequencies before they reach this crate.
+
+use crate::op::{local, SparseOp};
+use crate::{Envelope, ModelError, Space, C64};
+
+/// Parameters of one two-level site.
+#[derive(Clone, Debug, PartialEq, Default)]
+pub struct SiteParams {
+    /// Δa = transition frequency − drive/frame frequency; enters as (Δa/2)σᶻ.
+    pub detuning: f64,
+    /// Spontaneous decay rate γ; jump operator √γ σ⁻ (Pₑ decays as e^{−γt}).
+    pub decay: f64,
+    /// Pure dephasing rate γφ; jump operator √(γφ/2) σᶻ, so coherences decay as e^{−γφ t}.
+    pub dephasing: f64,
+    /// Incoherent pump rate P; jump operator √P σ⁺.
+    pub pump: f64,
+    /// Transverse drive (Rabi frequency) Ω; enters as (Ω/2)σˣ · f(t).
+    pub rabi: f64,
+}
+
+/// Parameters of one bosonic mode.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ModeParams {
+    /// Fock truncation: number of levels kept (≥ 2).
+    pub levels: usize,
+    /// Δc = mode frequency − drive/frame frequency; enters as Δc a†a.
+    pub detuning: f64,
+    /// Energy decay rate κ (⟨a†a⟩ decays as e^{−κt}; output flux κ⟨a†a⟩).
+    pub loss: f64,
+    /// Thermal occupation n_th of the bath: jumps √(κ(1+n_th)) a and √(κ n_th) a†.
+    pub thermal: f64,
+    /// Coherent drive amplitude ε; enters as ε(a + a†) · f(t).
+    pub drive: f64,
+    /// Envelope f(t) of the drive.
+    pub drive_envelope: Envelope,
+}
+
+impl Default for ModeParams {
+    fn default() -> Self {
+        Self {
+            levels: 2,
+            detuning: 0.0,
+            loss: 0.0,
+            thermal: 0.0,
+            drive: 0.0,
+            drive_envelope: Envelope::Constant,
+        }
+    }
+}
+
+/// Form of the spin–mode coupling.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub enum CouplingForm {
+    /// Rotating-wave (Jaynes–Cummings / Tavis–Cummings): g(aσ⁺ + a†σ⁻).
+    #[default]
+    Exchange,
+    /// Full dipole (Rabi / Dicke): g(a + a†)σˣ.
+    Dipole,
+}
+
+/// A driven-dissipative spin–cavity network, in angular units.
+#[derive(Clone, Debug, PartialEq, Default)]
+pub struct Network {
+    /// The two-level sites.
+    pub sites: Vec<SiteParams>,
+    /// The bosonic modes.
+    pub modes: Vec<ModeParams>,
+    /// Spin–mode coupling strengths gᵢₘ, indexed `[site][mode]` (N rows of M entries).
+    pub coupling: Vec<Vec<f64>>,
+    /// Form of the spin–mode coupling.
+    pub coupling_form: CouplingForm,
+    /// Envelope f(t) multiplying every gᵢₘ.
+    pub coupling_envelope: Envelope,
+    /// Direct zz couplings Jᶻ (N×N, symmetric, zero diagonal; the term is Σᵢ<ⱼ Jᶻᵢⱼ σᶻᵢσᶻⱼ).
+    /// Empty means none.
+    pub zz: Vec<Vec<f64>>,
+    /// Envelope f(t) multiplying every Jᶻᵢⱼ.
+    pub zz_envelope: Envelope,
+    /// Direct exchange couplings Jˣ (N×N, symmetric, zero diagonal; the term is
+    /// Σᵢ<ⱼ Jˣᵢⱼ(σ⁺ᵢσ⁻ⱼ + σ⁻ᵢσ⁺ⱼ)). Empty means none.
+    pub flip_flop: Vec<Vec<f64>>,
+    /// Envelope f(t) multiplying every Jˣᵢⱼ.
+    pub flip_flop_envelope: Envelope,
+    /// Envelope f(t) multiplying every site's Rabi frequency Ωᵢ.
+    pub rabi_envelope: Envelope,
+}
+
+/// Which physical process a jump operator describes (used to label output channels).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Channel {
+    /// Photon leaving mode m through its loss port: √(κ(1+n_th)) a.
+    ModeLoss(usize),
+    /// Photon entering mode m from its thermal bath: √(κ n_th) a†.
+    ModeGain(usize),
+    /// Spontaneous emission of site i: √γ σ⁻.
+    SiteDecay(usize),
+    /// Pure dephasing of site i: √(γφ/2) σᶻ.
+    SiteDephasing(usize),
+    /// Incoherent pumping of site i: √P σ⁺.
+    SitePump(usize),
+}
+
+impl Channel {
+    /// Short machine-readable label, e.g. `mode0-loss`, `site2-decay`.
+    pub fn label(&self) -> String {
+        match *self {
+            Channel::ModeLoss(m) => format!("mode{m}-loss"),
+            Channel::ModeGain(m) => format!("mode{m}-gain"),
+            Channel::SiteDecay(i) => format!("site{i}-decay"),
+            Channel::SiteDephasing(i) => format!("site{i}-dephasing"),
+            Channel::SitePump(i) => format!("site{i}-pump"),
+        }
+    }
+}
+
+/// A jump operator L with its channel; `op` already includes the square root of the rate.
+#[derive(Clone, Debug, PartialEq)]
+pub struct JumpOp {
+    /// The physical channel.
+    pub channel: Channel,
+    /// The channel's physical rate (κ(1+n_th), κn_th, γ, γφ or P). `op` carries its square root,
+    /// except for dephasing, where `op` = √(γφ/2) σᶻ.
+    pub rate: f64,
+    /// L, including √rate.
+    pub op: SparseOp,
+}
+
+/// A Hermitian Hamiltonian term scaled by a time envelope: f(t)·H_k.
+#[derive(Clone, Debug, PartialEq)]
+pub struct DrivenTerm {
+    /// What the term is (for reports).
+    pub label: String,
+    /// f(t).
+    pub envelope: Envelope,
+    /// H_k (Hermitian).
+    pub op: SparseOp,
+}
+
+/// The Lindblad master equation dρ/dt = −i[H(t), ρ] + Σ D[L]ρ with
+/// H(t) = H₀ + Σₖ fₖ(t) Hₖ and D[L]ρ = LρL† − ½{L†L, ρ}.
+#[derive(Clone, Debug, PartialEq)]
+pub struct MasterEquation {
+    /// The Hilbert space.
+    pub space: Space,
+    /// H₀ (Hermitian, time independent).
+    pub static_hamiltonian: SparseOp,
+    /// Envelope-scaled Hermitian terms fₖ(t) Hₖ.
+    pub driven: Vec<DrivenTerm>,
+    /// Jump operators with non-zero rates.
+    pub jumps: Vec<JumpOp>,
+}
+
+fn real(x: f64) -> C64 {
+    C64::new(x, 0.0)
+}
+
+fn check_rate(what: String, value: f64) -> Result<(), ModelError> {
+    if !value.is_finite() || value < 0.0 {
+        return Err(ModelError::Range { what, value, allowed: "a finite rate ≥ 0".into() });
+    }
+    Ok(())
+}
+
+fn check_finite(what: String, value: f64) -> Result<(), ModelError> {
+    if !value.is_finite() {
+        return Err(ModelError::Range { what, value, allowed: "a finite number".into() });
+    }
+    Ok(())
+}
+
+impl Network {
+    /// A network with no sites, no modes and no couplings.
+    pub fn empty() -> Self {
+        Self::default()
+    }
+
+    /// The Hilbert space of this network.
+    ///
+    /// # Errors
+    /// [`ModelError::DimensionOverflow`] if the dimension does not fit in `usize`.
+    pub fn space(&self) -> Result<Space, ModelError> {
+        let levels: Vec<usize> = self.modes.iter().map(|m| m.levels).collect();
+        Space::new(self.sites.len(), &levels)
+            .ok_or(ModelError::DimensionOverflow { sites: self.sites.len(), levels })
+    }
+
+    fn check(&self) -> Result<(), ModelError> {
+        let n = self.sites.len();
+        let m = self.modes.len();
+        for (i, s) in self.sites.iter().enumerate() {
+            check_finite(format!("site {i} detuning"), s.detuning)?;
+            check_rate(format!("site {i} decay"), s.decay)?;
+            check_rate(format!("site {i} dephasing"), s.dephasing)?;
+            check_rate(format!("site {i} pump"), s.pump)?;
+            check_finite(format!("site {i} Rabi frequency"), s.rabi)?;
+        }
+        for (k, md) in self.modes.iter().enumerate() {
+            if md.levels < 2 {
+                return Err(ModelError::Range {
+                    what: format!("mode {k} levels"),
+                    value: md.levels as f64,
+                    allowed: "at least 2 Fock levels".into(),
+                });
+            }
+            check_finite(format!("mode {k} detuning"), md.detuning)?;
+            check_rate(format!("mode {k} loss"), md.loss)?;
+            check_rate(format!("mode {k} thermal occupation"), md.thermal)?;
+            check_finite(format!("mode {k} drive"), md.drive)?;
+        }
+        let shape_ok = self.coupling.is_empty()
+            || (self.coupling.len() == n && self.coupling.iter().all(|r| r.len() == m));
+        if !shape_ok {
+            return Err(ModelError::Shape {
+                what: "the site×mode coupling matrix".into(),
+                rows: n,
+                cols: m,
+                got: describe_shape(&self.coupling),
+            });
+        }
+        for (i, row) in self.coupling.iter().enumerate() {
+            for (k, &g) in row.iter().enumerate() {
+                check_finite(format!("coupling[{i}][{k}]"), g)?;
+            }
+        }
+        for (name, mat) in [("zz", &self.zz), ("flip-flop", &self.flip_flop)] {
+            if mat.is_empty() {
+                continue;
+            }
+            if mat.len() != n || mat.iter().any(|r| r.len() != n) {
+                return Err(ModelError::Shape {
+                    what: format!("the {name} spin–spin matrix"),
+                    rows: n,
+                    cols: n,
+                    got: describe_shape(mat),
+                });
+            }
+            for i in 0..n {
+                check_finite(format!("{name}[{i}][{i}]"), mat[i][i])?;
+                if mat[i][i] != 0.0 {
+                    return Err(ModelError::Range {
+                        what: format!("{name}[{i}][{i}]"),
+                        value: mat[i][i],
+                        allowed: "0 (no self-coupling on the diagonal)".into(),
+                    });
+                }
+                for j in 0..n {
+                    check_finite(format!("{name}[{i}][{j}]"), mat[i][j])?;
+                    let scale = mat[i][j].abs().max(mat[j][i].abs());
+                    if (mat[i][j] - mat[j][i]).abs() > 1e-12 * scale {
+                        return Err(ModelError::Range {
+                            what: format!("{name}[{i}][{j}]"),
+                            value: mat[i][j],
+                            allowed: format!("a symmetric matrix ({name}[{j}][{i}] = {})", mat[j][i]),
+                        });
+                    }
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// Build the master equation.
+    ///
+    /// # Errors
+    /// [`ModelError`] for negative or non-finite rates, fewer than 2 Fock levels, matrices of the
+    /// wrong shape, non-symmetric spin–spin matrices, or an overflowing dimension.
+    pub fn build(&self) -> Result<MasterEquation, ModelError> {
+        self.check()?;
+        let space = self.space()?;
+        let d = space.dim();
+        let mut h0 = Vec::new(); // triplets of the static Hamiltonian
+        let mut driven: Vec<DrivenTerm> = Vec::new();
+        let mut jumps = Vec::new();
+        let sigma_minus: Vec<SparseOp> = (0..self.sites.len())
+            .map(|i| SparseOp::local(&space, space.site_factor(i), &local::lowering()))
+            .collect();
+        let sigma_z: Vec<SparseOp> = (0..self.sites.len())
+            .map(|i| SparseOp::local(&space, space.site_factor(i), &local::pauli_z()))
+            .collect();
+        let modes_a: Vec<SparseOp> = self
+            .modes
+            .iter()
+            .enumerate()
+            .map(|(m, p)| SparseOp::local(&space, space.mode_factor(m), &local::annihilation(p.levels)))
+            .collect();
+
+        for (i, s) in self.sites.iter().enumerate() {
+            if s.detuning != 0.0 {
+                h0.extend(sigma_z[i].scaled(real(s.detuning / 2.0)).triplets());
+            }
+            if s.rabi != 0.0 {
+                let sx = SparseOp::local(&space, space.site_factor(i), &local::pauli_x());
+                push_term(
+                    &mut h0,
+                    &mut driven,
+                    &self.rabi_envelope,
+                    format!("site {i} drive (Ω/2)σˣ"),
+                    sx.scaled(real(s.rabi / 2.0)),
+                );
+            }
+            let rates = [
+                (Channel::SiteDecay(i), s.decay, sigma_minus[i].clone()),
+                (Channel::SiteDephasing(i), s.dephasing / 2.0, sigma_z[i].clone()),
+                (Channel::SitePump(i), s.pump, sigma_minus[i].adjoint()),
+            ];
+            for (channel, rate, op) in rates {
+                if rate > 0.0 {
+                    let rate_in = if matches!(channel, Channel::SiteDephasing(_)) {
+                        s.dephasing
+                    } else {
+                        rate
+                    };
+                    jumps.push(JumpOp { channel, rate: rate_in, op: op.scaled(real(rate.sqrt())) });
+                }
+            }
+        }
+        for (m, p) in self.modes.iter().enumerate() {
+            let a = &modes_a[m];
+            let ad = a.adjoint();
+            if p.detuning != 0.0 {
+                h0.extend(ad.times(a).scaled(real(p.detuning)).triplets());
+            }
+            if p.drive != 0.0 {
+                push_term(
+                    &mut h0,
+                    &mut driven,
+                    &p.drive_envelope,
+                    format!("mode {m} drive ε(a + a†)"),
+                    a.plus(&ad).scaled(real(p.drive)),
+                );
+            }
+            let down = p.loss * (1.0 + p.thermal);
+            let up = p.loss * p.thermal;
+            if down > 0.0 {
+                jumps.push(JumpOp {
+                    channel: Channel::ModeLoss(m),
+                    rate: down,
+                    op: a.scaled(real(down.sqrt())),
+                });
+            }
+            if up > 0.0 {
+                jumps.push(JumpOp {
+                    channel: Channel::ModeGain(m),
+                    rate: up,
+                    op: ad.scaled(real(up.sqrt())),
+                });
+            }
+        }
+        // spin–mode couplings, collected into one operator sharing the coupling envelope
+        let mut coupling = Vec::new();
+        for (i, row) in self.coupling.iter().enumerate() {
+            for (m, &g) in row.iter().enumerate() {
+                if g == 0.0 {
+                    continue;
+                }
+                let a = &modes_a[m];
+                let term = match self.coupling_form {
+                    CouplingForm::Exchange => {
+                        let x = a.times(&sigma_minus[i].adjoint());
+                        x.plus(&x.adjoint())
+                    }
+                    CouplingForm::Dipole => {
+                        let sx = SparseOp::local(&space, space.site_factor(i), &local::pauli_x());
+                        a.plus(&a.adjoint()).times(&sx)
+                    }
+                };
+                coupling.extend(term.scaled(real(g)).triplets());
+            }
+        }
+        if !coupling.is_empty() {
+            let label = match self.coupling_form {
+                CouplingForm::Exchange => "spin–mode exchange g(aσ⁺ + a†σ⁻)",
+                CouplingForm::Dipole => "spin–mode dipole g(a + a†)σˣ",
+            };
+            let op = SparseOp::from_triplets(d, coupling);
+            push_term(&mut h0, &mut driven, &self.coupling_envelope, label.into(), op);
+        }
+        let n = self.sites.len();
+        if !self.zz.is_empty() {
+            let mut t = Vec::new();
+            for i in 0..n {
+                for j in (i + 1)..n {
+                    if self.zz[i][j] != 0.0 {
+                        t.extend(sigma_z[i].times(&sigma_z[j]).scaled(real(self.zz[i][j])).triplets());
+                    }
+                }
+            }
+            if !t.is_empty() {
+                let op = SparseOp::from_triplets(d, t);
+                push_term(&mut h0, &mut driven, &self.zz_envelope, "spin–spin Jᶻσᶻσᶻ".into(), op);
+            }
+        }
+        if !self.flip_flop.is_empty() {
+            let mut t = Vec::new();
+            for i in 0..n {
+                for j in (i + 1)..n {
+                    if self.flip_flop[i][j] != 0.0 {
+                        let x = sigma_minus[i].adjoint().times(&sigma_minus[j]);
+                        t.extend(x.plus(&x.adjoint()).scaled(real(self.flip_flop[i][j])).triplets());
+                    }
+                }
+            }
+            if !t.is_empty() {
+                let op = SparseOp::from_triplets(d, t);
+                let label = "spin–spin Jˣ(σ⁺σ⁻ + σ⁻σ⁺)".into();
+                push_term(&mut h0, &mut driven, &self.flip_flop_envelope, label, op);
+            }
+        }
+        Ok(MasterEquation {
+            space,
+            static_hamiltonian: SparseOp::from_triplets(d, h0),
+            driven,
+            jumps,
+        })
+    }
+}
+
+fn push_term(
+    h0: &mut Vec<(usize, usize, C64)>,
+    driven: &mut Vec<DrivenTerm>,
+    envelope: &Envelope,
+    label: String,
+    op: SparseOp,
+) {
+    if envelope.is_constant() {
+        h0.extend(op.triplets());
+    } else {
+        driven.push(DrivenTerm { label, envelope: envelope.clone(), op });
+    }
+}
+
+fn describe_shape(m: &[Vec<f64>]) -> String {
+    let lens: Vec<usize> = m.iter().map(|r| r.len()).collect();
+    if lens.iter().all(|&l| l == lens.first().copied().unwrap_or(0)) {
+        format!("{}×{}", m.len(), lens.first().copied().unwrap_or(0))
+    } else {
+        format!("{} rows of lengths {:?}", m.len(), lens)
+    }
+}
+
+impl MasterEquation {
+    /// H(t) = H₀ + Σₖ fₖ(t) Hₖ as one sparse operator (allocates; for reports and tests).
+    pub fn hamiltonian_at(&self, t: f64) -> SparseOp {
+        let mut h = self.static_hamiltonian.clone();
+        for term in &self.driven {
+            h = h.plus(&term.op.scaled(real(term.envelope.value(t))));
+        }
+        h
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn one_site_one_mode() -> Network {
+        Network {
+            sites: vec![SiteParams { detuning: 0.3, decay: 0.1, dephasing: 0.2, pump: 0.05, rabi: 0.4 }],
+            modes: vec![ModeParams { levels: 4, detuning: -0.2, loss: 1.0, thermal: 0.5, drive: 0.7, ..Default::default() }],
+            coupling: vec![vec![0.9]],
+            ..Network::empty()
+        }
+    }
+
+    #[test]
+    fn hamiltonian_is_hermitian_and_jumps_carry_rates() {
+        for form in [CouplingForm::Exchange, CouplingForm::Dipole] {
+            let mut net = one_site_one_mode();
+            net.coupling_form = form;
+            let me = net.build().unwrap();
+            assert!(me.static_hamiltonian.hermiticity_defect() < 1e-15);
+            assert_eq!(me.jumps.len(), 5);
+            for j in &me.jumps {
+                assert!(j.op.is_row_monomial(), "{:?}", j.channel);
+            }
+            // √(κ(1+n_th)) a: the |1⟩→|0⟩ element is √1.5
+            let loss = me.jumps.iter().find(|j| j.channel == Channel::ModeLoss(0)).unwrap();
+            let el = loss.op.row(0).next().unwrap().1;
+            assert!((el.re - 1.5f64.sqrt()).abs() < 1e-15);
+        }
+    }
+
+    #[test]
+    fn bad_parameters_are_refused() {
+        let mut net = one_site_one_mode();
+        net.sites[0].decay = -1.0;
+        assert!(matches!(net.build(), Err(ModelError::Range { .. })));
+        let mut net = one_site_one_mode();
+        net.modes[0].levels = 1;
+        assert!(net.build().is_err());
+        let mut net = one_site_one_mode();
+        net.coupling = vec![vec![0.1, 0.2]];
+        assert!(matches!(net.build(), Err(ModelError::Shape { .. })));
+        let mut net = one_site_one_mode();
+        net.sites.push(SiteParams::default());
+        net.coupling = vec![vec![0.1], vec![0.1]];
+        net.zz = vec![vec![0.0, 1.0], vec![2.0, 0.0]];
+        assert!(net.build().is_err());
+    }
+
+    #[test]
+    fn envelope_terms_are_kept_apart() {
+        let mut net = one_site_one_mode();
+        net.modes[0].drive_envelope = Envelope::Ramp { start: 0.0, stop: 1.0, from: 0.0, to: 1.0 };
+        let me = net.build().unwrap();
+        assert_eq!(me.driven.len(), 1);
+        let h0 = me.hamiltonian_at(0.0);
+        let h1 = me.hamiltonian_at(1.0);
+        let full = one_site_one_mode().build().unwrap().static_hamiltonian;
+        assert_eq!(h1.to_dense(), full.to_dense());
+        assert_ne!(h0.to_dense(), full.to_dense());
+    }
+}
