@@ -59,7 +59,9 @@ impl Envelope {
             )));
         }
         if times.iter().chain(values.iter()).any(|x| !x.is_finite()) {
-            return Err(ModelError::Envelope("table entries must be finite numbers".into()));
+            return Err(ModelError::Envelope(
+                "table entries must be finite numbers".into(),
+            ));
         }
         if let Some(k) = times.windows(2).position(|w| w[1] <= w[0]) {
             return Err(ModelError::Envelope(format!(
@@ -81,11 +83,21 @@ impl Envelope {
     pub fn value(&self, t: f64) -> f64 {
         match self {
             Envelope::Constant => 1.0,
-            Envelope::Ramp { start, stop, from, to } => {
+            Envelope::Ramp {
+                start,
+                stop,
+                from,
+                to,
+            } => {
                 let u = ((t - start) / (stop - start)).clamp(0.0, 1.0);
                 from + (to - from) * u
             }
-            Envelope::SmoothStep { start, stop, from, to } => {
+            Envelope::SmoothStep {
+                start,
+                stop,
+                from,
+                to,
+            } => {
                 let u = ((t - start) / (stop - start)).clamp(0.0, 1.0);
                 from + (to - from) * u * u * (3.0 - 2.0 * u)
             }
@@ -113,11 +125,21 @@ mod tests {
 
     #[test]
     fn shapes_hit_their_end_values() {
-        let r = Envelope::Ramp { start: 1.0, stop: 3.0, from: 0.0, to: 2.0 };
+        let r = Envelope::Ramp {
+            start: 1.0,
+            stop: 3.0,
+            from: 0.0,
+            to: 2.0,
+        };
         assert_eq!(r.value(0.0), 0.0);
         assert_eq!(r.value(2.0), 1.0);
         assert_eq!(r.value(5.0), 2.0);
-        let s = Envelope::SmoothStep { start: 0.0, stop: 2.0, from: 1.0, to: 3.0 };
+        let s = Envelope::SmoothStep {
+            start: 0.0,
+            stop: 2.0,
+            from: 1.0,
+            to: 3.0,
+        };
         assert_eq!(s.value(-1.0), 1.0);
         assert_eq!(s.value(1.0), 2.0);
         assert_eq!(s.value(2.0), 3.0);

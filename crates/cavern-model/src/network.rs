@@ -160,14 +160,22 @@ fn real(x: f64) -> C64 {
 
 fn check_rate(what: String, value: f64) -> Result<(), ModelError> {
     if !value.is_finite() || value < 0.0 {
-        return Err(ModelError::Range { what, value, allowed: "a finite rate ≥ 0".into() });
+        return Err(ModelError::Range {
+            what,
+            value,
+            allowed: "a finite rate ≥ 0".into(),
+        });
     }
     Ok(())
 }
 
 fn check_finite(what: String, value: f64) -> Result<(), ModelError> {
     if !value.is_finite() {
-        return Err(ModelError::Range { what, value, allowed: "a finite number".into() });
+        return Err(ModelError::Range {
+            what,
+            value,
+            allowed: "a finite number".into(),
+        });
     }
     Ok(())
 }
@@ -184,8 +192,10 @@ impl Network {
     /// [`ModelError::DimensionOverflow`] if the dimension does not fit in `usize`.
     pub fn space(&self) -> Result<Space, ModelError> {
         let levels: Vec<usize> = self.modes.iter().map(|m| m.levels).collect();
-        Space::new(self.sites.len(), &levels)
-            .ok_or(ModelError::DimensionOverflow { sites: self.sites.len(), levels })
+        Space::new(self.sites.len(), &levels).ok_or(ModelError::DimensionOverflow {
+            sites: self.sites.len(),
+            levels,
+        })
     }
 
     fn check(&self) -> Result<(), ModelError> {
@@ -254,7 +264,10 @@ impl Network {
                         return Err(ModelError::Range {
                             what: format!("{name}[{i}][{j}]"),
                             value: mat[i][j],
-                            allowed: format!("a symmetric matrix ({name}[{j}][{i}] = {})", mat[j][i]),
+                            allowed: format!(
+                                "a symmetric matrix ({name}[{j}][{i}] = {})",
+                                mat[j][i]
+                            ),
                         });
                     }
                 }
@@ -285,7 +298,9 @@ impl Network {
             .modes
             .iter()
             .enumerate()
-            .map(|(m, p)| SparseOp::local(&space, space.mode_factor(m), &local::annihilation(p.levels)))
+            .map(|(m, p)| {
+                SparseOp::local(&space, space.mode_factor(m), &local::annihilation(p.levels))
+            })
             .collect();
 
         for (i, s) in self.sites.iter().enumerate() {
@@ -304,7 +319,11 @@ impl Network {
             }
             let rates = [
                 (Channel::SiteDecay(i), s.decay, sigma_minus[i].clone()),
-                (Channel::SiteDephasing(i), s.dephasing / 2.0, sigma_z[i].clone()),
+                (
+                    Channel::SiteDephasing(i),
+                    s.dephasing / 2.0,
+                    sigma_z[i].clone(),
+                ),
                 (Channel::SitePump(i), s.pump, sigma_minus[i].adjoint()),
             ];
             for (channel, rate, op) in rates {
@@ -314,7 +333,11 @@ impl Network {
                     } else {
                         rate
                     };
-                    jumps.push(JumpOp { channel, rate: rate_in, op: op.scaled(real(rate.sqrt())) });
+                    jumps.push(JumpOp {
+                        channel,
+                        rate: rate_in,
+                        op: op.scaled(real(rate.sqrt())),
+                    });
                 }
             }
         }
@@ -377,7 +400,13 @@ impl Network {
                 CouplingForm::Dipole => "spin–mode dipole g(a + a†)σˣ",
             };
             let op = SparseOp::from_triplets(d, coupling);
-            push_term(&mut h0, &mut driven, &self.coupling_envelope, label.into(), op);
+            push_term(
+                &mut h0,
+                &mut driven,
+                &self.coupling_envelope,
+                label.into(),
+                op,
+            );
         }
         let n = self.sites.len();
         if !self.zz.is_empty() {
@@ -385,13 +414,24 @@ impl Network {
             for i in 0..n {
                 for j in (i + 1)..n {
                     if self.zz[i][j] != 0.0 {
-                        t.extend(sigma_z[i].times(&sigma_z[j]).scaled(real(self.zz[i][j])).triplets());
+                        t.extend(
+                            sigma_z[i]
+                                .times(&sigma_z[j])
+                                .scaled(real(self.zz[i][j]))
+                                .triplets(),
+                        );
                     }
                 }
             }
             if !t.is_empty() {
                 let op = SparseOp::from_triplets(d, t);
-                push_term(&mut h0, &mut driven, &self.zz_envelope, "spin–spin Jᶻσᶻσᶻ".into(), op);
+                push_term(
+                    &mut h0,
+                    &mut driven,
+                    &self.zz_envelope,
+                    "spin–spin Jᶻσᶻσᶻ".into(),
+                    op,
+                );
             }
         }
         if !self.flip_flop.is_empty() {
@@ -400,7 +440,11 @@ impl Network {
                 for j in (i + 1)..n {
                     if self.flip_flop[i][j] != 0.0 {
                         let x = sigma_minus[i].adjoint().times(&sigma_minus[j]);
-                        t.extend(x.plus(&x.adjoint()).scaled(real(self.flip_flop[i][j])).triplets());
+                        t.extend(
+                            x.plus(&x.adjoint())
+                                .scaled(real(self.flip_flop[i][j]))
+                                .triplets(),
+                        );
                     }
                 }
             }
@@ -429,13 +473,20 @@ fn push_term(
     if envelope.is_constant() {
         h0.extend(op.triplets());
     } else {
-        driven.push(DrivenTerm { label, envelope: envelope.clone(), op });
+        driven.push(DrivenTerm {
+            label,
+            envelope: envelope.clone(),
+            op,
+        });
     }
 }
 
 fn describe_shape(m: &[Vec<f64>]) -> String {
     let lens: Vec<usize> = m.iter().map(|r| r.len()).collect();
-    if lens.iter().all(|&l| l == lens.first().copied().unwrap_or(0)) {
+    if lens
+        .iter()
+        .all(|&l| l == lens.first().copied().unwrap_or(0))
+    {
         format!("{}×{}", m.len(), lens.first().copied().unwrap_or(0))
     } else {
         format!("{} rows of lengths {:?}", m.len(), lens)
@@ -459,8 +510,21 @@ mod tests {
 
     fn one_site_one_mode() -> Network {
         Network {
-            sites: vec![SiteParams { detuning: 0.3, decay: 0.1, dephasing: 0.2, pump: 0.05, rabi: 0.4 }],
-            modes: vec![ModeParams { levels: 4, detuning: -0.2, loss: 1.0, thermal: 0.5, drive: 0.7, ..Default::default() }],
+            sites: vec![SiteParams {
+                detuning: 0.3,
+                decay: 0.1,
+                dephasing: 0.2,
+                pump: 0.05,
+                rabi: 0.4,
+            }],
+            modes: vec![ModeParams {
+                levels: 4,
+                detuning: -0.2,
+                loss: 1.0,
+                thermal: 0.5,
+                drive: 0.7,
+                ..Default::default()
+            }],
             coupling: vec![vec![0.9]],
             ..Network::empty()
         }
@@ -478,7 +542,11 @@ mod tests {
                 assert!(j.op.is_row_monomial(), "{:?}", j.channel);
             }
             // √(κ(1+n_th)) a: the |1⟩→|0⟩ element is √1.5
-            let loss = me.jumps.iter().find(|j| j.channel == Channel::ModeLoss(0)).unwrap();
+            let loss = me
+                .jumps
+                .iter()
+                .find(|j| j.channel == Channel::ModeLoss(0))
+                .unwrap();
             let el = loss.op.row(0).next().unwrap().1;
             assert!((el.re - 1.5f64.sqrt()).abs() < 1e-15);
         }
@@ -505,7 +573,12 @@ mod tests {
     #[test]
     fn envelope_terms_are_kept_apart() {
         let mut net = one_site_one_mode();
-        net.modes[0].drive_envelope = Envelope::Ramp { start: 0.0, stop: 1.0, from: 0.0, to: 1.0 };
+        net.modes[0].drive_envelope = Envelope::Ramp {
+            start: 0.0,
+            stop: 1.0,
+            from: 0.0,
+            to: 1.0,
+        };
         let me = net.build().unwrap();
         assert_eq!(me.driven.len(), 1);
         let h0 = me.hamiltonian_at(0.0);

@@ -18,7 +18,12 @@ pub struct SparseOp {
 impl SparseOp {
     /// The zero operator on a space of dimension `dim`.
     pub fn zero(dim: usize) -> Self {
-        Self { dim, ptr: vec![0; dim + 1], col: Vec::new(), val: Vec::new() }
+        Self {
+            dim,
+            ptr: vec![0; dim + 1],
+            col: Vec::new(),
+            val: Vec::new(),
+        }
     }
 
     /// The identity on a space of dimension `dim`.
@@ -42,7 +47,10 @@ impl SparseOp {
         let mut val: Vec<C64> = Vec::with_capacity(t.len());
         let mut last: Option<(usize, usize)> = None;
         for (r, c, v) in t {
-            assert!(r < dim && c < dim, "triplet ({r},{c}) outside dimension {dim}");
+            assert!(
+                r < dim && c < dim,
+                "triplet ({r},{c}) outside dimension {dim}"
+            );
             if last == Some((r, c)) {
                 // invariant: `last` is only set after pushing an entry
                 *val.last_mut().expect("entry pushed for `last`") += v;
@@ -96,7 +104,11 @@ impl SparseOp {
     /// If `local.len()` is not the square of the factor's dimension.
     pub fn local(space: &Space, k: usize, local: &[C64]) -> Self {
         let n = space.factors()[k].dim();
-        assert_eq!(local.len(), n * n, "local operator has the wrong size for factor {k}");
+        assert_eq!(
+            local.len(),
+            n * n,
+            "local operator has the wrong size for factor {k}"
+        );
         let s = space.stride(k);
         let mut t = Vec::new();
         for r in 0..space.dim() {
@@ -124,7 +136,10 @@ impl SparseOp {
     /// Entries of row `r` as (column, value) pairs, columns ascending.
     pub fn row(&self, r: usize) -> impl Iterator<Item = (usize, C64)> + '_ {
         let range = self.ptr[r]..self.ptr[r + 1];
-        self.col[range.clone()].iter().copied().zip(self.val[range].iter().copied())
+        self.col[range.clone()]
+            .iter()
+            .copied()
+            .zip(self.val[range].iter().copied())
     }
 
     /// Row pointer, column and value arrays (CSR).
@@ -143,7 +158,11 @@ impl SparseOp {
 
     /// Hermitian adjoint A†.
     pub fn adjoint(&self) -> Self {
-        let t = self.triplets().into_iter().map(|(r, c, v)| (c, r, v.conj())).collect();
+        let t = self
+            .triplets()
+            .into_iter()
+            .map(|(r, c, v)| (c, r, v.conj()))
+            .collect();
         Self::from_triplets(self.dim, t)
     }
 
@@ -285,7 +304,9 @@ mod tests {
         let up = SparseOp::local(&s, 1, &local::raising());
         let dn = SparseOp::local(&s, 1, &local::lowering());
         let pe = up.times(&dn);
-        let expect = SparseOp::identity(s.dim()).plus(&z).scaled(C64::new(0.5, 0.0));
+        let expect = SparseOp::identity(s.dim())
+            .plus(&z)
+            .scaled(C64::new(0.5, 0.0));
         assert_eq!(pe.to_dense(), expect.to_dense());
     }
 
@@ -295,7 +316,10 @@ mod tests {
         let s = Space::new(0, &[4]).unwrap();
         let a = SparseOp::local(&s, 0, &local::annihilation(4));
         let ad = a.adjoint();
-        let c = a.times(&ad).plus(&ad.times(&a).scaled(C64::new(-1.0, 0.0))).to_dense();
+        let c = a
+            .times(&ad)
+            .plus(&ad.times(&a).scaled(C64::new(-1.0, 0.0)))
+            .to_dense();
         for n in 0..4 {
             let want = if n < 3 { 1.0 } else { -3.0 };
             // entries are differences of products like √3·√3: allow a few ulps of n

@@ -42,14 +42,23 @@ impl Space {
     /// Returns `None` if the total dimension overflows `usize`.
     pub fn new(n_sites: usize, mode_levels: &[usize]) -> Option<Self> {
         let mut factors = vec![FactorKind::Site; n_sites];
-        factors.extend(mode_levels.iter().map(|&levels| FactorKind::Mode { levels }));
+        factors.extend(
+            mode_levels
+                .iter()
+                .map(|&levels| FactorKind::Mode { levels }),
+        );
         let mut strides = vec![0; factors.len()];
         let mut dim: usize = 1;
         for (k, f) in factors.iter().enumerate().rev() {
             strides[k] = dim;
             dim = dim.checked_mul(f.dim())?;
         }
-        Some(Self { factors, strides, dim, n_sites })
+        Some(Self {
+            factors,
+            strides,
+            dim,
+            n_sites,
+        })
     }
 
     /// Total Hilbert-space dimension d.

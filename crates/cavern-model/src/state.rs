@@ -17,7 +17,10 @@ pub struct SpinInit {
 impl SpinInit {
     /// The basis state with spin value `s` (+1 → |e⟩, −1 → |g⟩).
     pub fn from_sign(s: i8) -> Self {
-        Self { theta: if s > 0 { 0.0 } else { std::f64::consts::PI }, phi: 0.0 }
+        Self {
+            theta: if s > 0 { 0.0 } else { std::f64::consts::PI },
+            phi: 0.0,
+        }
     }
 
     /// Amplitudes (c_g, c_e).
@@ -161,7 +164,11 @@ impl ProductState {
                 what: "the initial state".into(),
                 rows: space.n_sites(),
                 cols: space.n_modes(),
-                got: format!("{} site states and {} mode states", self.spins.len(), self.modes.len()),
+                got: format!(
+                    "{} site states and {} mode states",
+                    self.spins.len(),
+                    self.modes.len()
+                ),
             });
         }
         Ok(())
@@ -202,12 +209,16 @@ impl ProductState {
     pub fn vector(&self, space: &Space) -> Result<Vec<C64>, ModelError> {
         self.check_len(space)?;
         let mut psi = vec![C64::new(1.0, 0.0)];
-        let mut factors: Vec<Vec<C64>> = self.spins.iter().map(|s| s.amplitudes().to_vec()).collect();
+        let mut factors: Vec<Vec<C64>> =
+            self.spins.iter().map(|s| s.amplitudes().to_vec()).collect();
         for (m, md) in self.modes.iter().enumerate() {
             factors.push(md.amplitudes(space.mode_levels(m), m)?);
         }
         for f in factors {
-            psi = psi.iter().flat_map(|&x| f.iter().map(move |&y| x * y)).collect();
+            psi = psi
+                .iter()
+                .flat_map(|&x| f.iter().map(move |&y| x * y))
+                .collect();
         }
         Ok(psi)
     }
@@ -221,7 +232,13 @@ mod tests {
     fn product_density_is_the_outer_product_of_the_vector() {
         let space = Space::new(2, &[3]).unwrap();
         let st = ProductState {
-            spins: vec![SpinInit::from_sign(1), SpinInit { theta: 1.0, phi: 0.5 }],
+            spins: vec![
+                SpinInit::from_sign(1),
+                SpinInit {
+                    theta: 1.0,
+                    phi: 0.5,
+                },
+            ],
             modes: vec![ModeInit::Coherent(C64::new(0.4, -0.2))],
         };
         let psi = st.vector(&space).unwrap();
@@ -239,9 +256,17 @@ mod tests {
     #[test]
     fn bloch_convention() {
         // θ = 0 is |e⟩; θ = π/2, φ = 0 is (|e⟩ + |g⟩)/√2
-        let a = SpinInit { theta: 0.0, phi: 0.0 }.amplitudes();
+        let a = SpinInit {
+            theta: 0.0,
+            phi: 0.0,
+        }
+        .amplitudes();
         assert_eq!(a[1], C64::new(1.0, 0.0));
-        let b = SpinInit { theta: std::f64::consts::FRAC_PI_2, phi: 0.0 }.amplitudes();
+        let b = SpinInit {
+            theta: std::f64::consts::FRAC_PI_2,
+            phi: 0.0,
+        }
+        .amplitudes();
         assert!((b[0].re - b[1].re).abs() < 1e-15);
     }
 

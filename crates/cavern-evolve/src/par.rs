@@ -1,0 +1,57 @@
+//! Deterministic data-parallel helpers: fixed chunking so results never depend on thread count.
+
+use num_complex::Complex64 as C64;
+use rayon::prelude::*;
+
+/// Whether a kernel may use the rayon thread pool.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub enum Par {
+    /// Run on the calling thread (used inside already-parallel loops, e.g. one trajectory each).
+    Seq,
+    /// Split work over the current rayon pool (its thread count is set by the application).
+    #[default]
+    Rayon,
+}
+
+/// Elements per parallel chunk of a vector operation. Fixed, so that reductions combine the same
+/// partial sums in the same order whatever the number of threads.
+pub const CHUNK: usize = 1 << 14;
+
+/// Run `f(offset, chunk)` over consecutive chunks of `out` of [`CHUNK`] elements.
+pub fn for_chunks<F>(par: Par, out: &mut [C64], f: F)
+where
+    F: Fn(usize, &mut [C64]) + Sync + Send,
+{
+    if par == Par::Seq || out.len() <= CHUNK {
+        for (b, o) in out.chunks_mut(CHUNK).enumerate() {
+            f(b * CHUNK, o);
+        }
+    } else {
+        out.par_chunks_mut(CHUNK)
+            .enumerate()
+            .for_each(|(b, o)| f(b * CHUNK, o));
+    }
+}
+
+/// Sum of `f(lo, hi)` over consecutive index ranges of [`CHUNK`] elements covering `0..n`, added
+/// in range order (deterministic). `partials` is caller-owned scratch.
+pub fn sum_ranges<F>(par: Par, n: usize, partials: &mut Vec<f64>, f: F) -> f64
+where
+    F: Fn(usize, usize) -> f64 + Sync + Send,
+{
+    let n_chunks = n.div_ceil(CHUNK);
+    partials.resize(n_chunks, 0.0);
+    let range = |b: usize| (b * CHUNK, ((b + 1) * CHUNK).min(n));
+    if par == Par::Seq || n_chunks <= 1 {
+        for (b, p) in partials.iter_mut().enumerate() {
+            let (lo, hi) = range(b);
+            *p = f(lo, hi);
+        }
+    } else {
+        partials.par_iter_mut().enumerate().for_each(|(b, p)| {
+            let (lo, hi) = range(b);
+            *p = f(lo, hi);
+        });
+    }
+    partials.iter().sum()
+}
