@@ -202,6 +202,19 @@ impl ProductState {
         Ok(rho)
     }
 
+    /// Check the state against `space` without building the d×d matrix (site and mode counts,
+    /// Fock numbers within the truncation, finite parameters).
+    ///
+    /// # Errors
+    /// As [`ProductState::density`].
+    pub fn density_check(&self, space: &Space) -> Result<(), ModelError> {
+        self.check_len(space)?;
+        for (m, md) in self.modes.iter().enumerate() {
+            md.density(space.mode_levels(m), m)?;
+        }
+        Ok(())
+    }
+
     /// State vector |ψ⟩ (length d) of a pure product state.
     ///
     /// # Errors

@@ -1,0 +1,145 @@
+//! Command-line interface.
+
+use crate::config::{self, RunPlan};
+use crate::{output, report, run, AppError};
+use clap::{Parser, Subcommand};
+use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+use std::io::IsTerminal;
+use std::path::{Path, PathBuf};
+
+/// Exact Lindblad master-equation solver for driven-dissipative spin–cavity networks.
+#[derive(Parser, Debug)]
+#[command(name = "cavern", version, about)]
+pub struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Validate a config and describe the model: dimension, memory, terms with units, cooperativities.
+    Check {
+        /// The TOML config file.
+        file: PathBuf,
+    },
+    /// Run a config and write the HDF5 result file.
+    Run {
+        /// The TOML config file.
+        file: PathBuf,
+        /// Output file (default: the config's file name with extension .h5, in the current directory).
+        #[arg(short = 'o', long = "output")]
+        output: Option<PathBuf>,
+        /// Worker threads (0 = one per core); overrides [solver] threads.
+        #[arg(long)]
+        threads: Option<usize>,
+        /// No progress bar and no summary table.
+        #[arg(short, long)]
+        quiet: bool,
+    },
+}
+
+fn load(file: &Path) -> Result<RunPlan, AppError> {
+    config::load(file).map_err(|e| AppError::Input(e.to_string()))
+}
+
+fn check(file: &Path) -> Result<(), AppError> {
+    let plan = load(file)?;
+    let me = plan
+        .network
+        .build()
+        .map_err(|e| AppError::Input(format!("{}: {e}", file.display())))?;
+    plan.initial
+        .density_check(&me.space)
+        .map_err(|e| AppError::Input(format!("{}: initial state: {e}", file.display())))?;
+    let dim = me.space.dim();
+    let mem = run::memory_estimate(&plan, dim);
+    print!("{}", report::check_text(&plan, dim, &mem));
+    run::memory_guard(&plan, &mem)?;
+    println!("\nok: {} is valid", file.display());
+    Ok(())
+}
+
+fn default_output(file: &Path) -> PathBuf {
+    let stem = file
+        .file_stem()
+        .map(|s| s.to_os_string())
+        .unwrap_or_else(|| "cavern".into());
+    PathBuf::from(stem).with_extension("h5")
+}
+
+fn run_cmd(
+    file: &Path,
+    out: Option<PathBuf>,
+    threads: Option<usize>,
+    quiet: bool,
+) -> Result<(), AppError> {
+    let mut plan = load(file)?;
+    if let Some(t) = threads {
+        plan.solver.threads = t;
+    }
+    let out = out.unwrap_or_else(|| default_output(file));
+    if let Some(parent) = out.parent().filter(|p| !p.as_os_str().is_empty()) {
+        if !parent.is_dir() {
+            return Err(AppError::Input(format!(
+                "the output directory {} does not exist",
+                parent.display()
+            )));
+        }
+    }
+    let bar =
+        ProgressBar::with_draw_target(Some(plan.times.len() as u64), ProgressDrawTarget::stderr());
+    if quiet || !std::io::stderr().is_terminal() {
+        bar.set_draw_target(ProgressDrawTarget::hidden());
+    }
+    bar.set_style(
+        ProgressStyle::with_template(
+            "{bar:40} {pos}/{len} samples  {elapsed_precise} elapsed, eta {eta}",
+        )
+        .unwrap_or_else(|_| ProgressStyle::default_bar()),
+    );
+    let res = run::run(&plan, |done, _| bar.set_position(done as u64))?;
+    bar.finish_and_clear();
+    output::write(&plan, &res, &out)?;
+    if !quiet {
+        print!("{}", report::summary_table(&plan, &res));
+    }
+    for w in &res.warnings {
+        eprintln!("warning: {w}");
+    }
+    if !quiet {
+        println!("wrote {}", out.display());
+    }
+    Ok(())
+}
+
+/// Parse arguments, run, and return the exit code (errors are printed to stderr).
+pub fn main() -> i32 {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let _ = e.print();
+            return if e.use_stderr() { 2 } else { 0 };
+        }
+    };
+    let r = match cli.command {
+        Command::Check { file } => check(&file),
+        Command::Run {
+            file,
+            output,
+            threads,
+            quiet,
+        } => run_cmd(&file, output, threads, quiet),
+    };
+    match r {
+        Ok(()) => 0,
+        Err(e) => {
+            let text = e.to_string();
+            if text.starts_with("error:") {
+                eprintln!("{text}");
+            } else {
+                eprintln!("error: {text}");
+            }
+            e.exit_code()
+        }
+    }
+}

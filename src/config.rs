@@ -1,0 +1,1354 @@
+//! The TOML configuration: a raw serde layer (`deny_unknown_fields`, types only), then a resolved
+//! [`RunPlan`] in angular units with every value checked. Every error names the file, the line and
+//! the dotted key, and says what is allowed.
+//!
+//! The key reference with units and conventions is in README.md ("Config reference"); each key
+//! below is documented once, where it is parsed.
+
+use crate::units::Units;
+use cavern_model::{
+    CouplingForm, Envelope, ModeInit, ModeParams, Network, ProductState, SiteParams, SpinInit, C64,
+};
+use serde::Deserialize;
+use std::fmt;
+use std::path::{Path, PathBuf};
+use toml::Value;
+
+/// One problem found in a config file.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ConfigError {
+    /// The config file.
+    pub file: PathBuf,
+    /// 1-based line, when it could be located.
+    pub line: Option<usize>,
+    /// Dotted key path, e.g. `modes[0].levels`.
+    pub key: String,
+    /// What is wrong and what is allowed.
+    pub message: String,
+}
+
+impl fmt::Display for ConfigError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self.line {
+            Some(l) => write!(f, "{}:{}: ", self.file.display(), l)?,
+            None => write!(f, "{}: ", self.file.display())?,
+        }
+        if self.key.is_empty() {
+            write!(f, "{}", self.message)
+        } else {
+            write!(f, "key `{}`: {}", self.key, self.message)
+        }
+    }
+}
+
+/// All problems found in one config file.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ConfigErrors(pub Vec<ConfigError>);
+
+impl fmt::Display for ConfigErrors {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        for (k, e) in self.0.iter().enumerate() {
+            if k > 0 {
+                writeln!(f)?;
+            }
+            write!(f, "error: {e}")?;
+        }
+        Ok(())
+    }
+}
+
+impl std::error::Error for ConfigErrors {}
+
+// ---------------------------------------------------------------------------------------------
+// Raw layer
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawConfig {
+    title: Option<String>,
+    units: RawUnits,
+    time: RawTime,
+    #[serde(default)]
+    solver: RawSolver,
+    sites: Option<RawSites>,
+    #[serde(default)]
+    modes: Vec<RawMode>,
+    coupling: Option<RawCoupling>,
+    spin_spin: Option<RawSpinSpin>,
+    initial: Option<RawInitial>,
+    #[serde(default)]
+    observe: RawObserve,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawUnits {
+    system: String,
+    frequency: Option<String>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawTime {
+    stop: Option<f64>,
+    samples: Option<i64>,
+    at: Option<Vec<f64>>,
+}
+
+#[derive(Deserialize, Default)]
+#[serde(deny_unknown_fields)]
+struct RawSolver {
+    method: Option<String>,
+    rtol: Option<f64>,
+    atol: Option<f64>,
+    max_step: Option<f64>,
+    memory_share: Option<f64>,
+    threads: Option<i64>,
+}
+
+#[derive(Deserialize, Default, Clone)]
+#[serde(deny_unknown_fields)]
+struct RawSiteValues {
+    detuning: Option<f64>,
+    decay: Option<f64>,
+    dephasing: Option<f64>,
+    pump: Option<f64>,
+    rabi: Option<f64>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSites {
+    count: i64,
+    detuning: Option<f64>,
+    decay: Option<f64>,
+    dephasing: Option<f64>,
+    pump: Option<f64>,
+    rabi: Option<f64>,
+    rabi_envelope: Option<RawEnvelope>,
+    #[serde(default, rename = "override")]
+    overrides: Vec<RawSiteOverride>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSiteOverride {
+    index: i64,
+    #[serde(flatten)]
+    values: RawSiteValues,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawMode {
+    name: Option<String>,
+    levels: i64,
+    detuning: Option<f64>,
+    loss: Option<f64>,
+    thermal: Option<f64>,
+    drive: Option<f64>,
+    drive_envelope: Option<RawEnvelope>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawCoupling {
+    form: Option<String>,
+    strength: Value,
+    envelope: Option<RawEnvelope>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSpinSpin {
+    zz: Option<Value>,
+    zz_envelope: Option<RawEnvelope>,
+    flip_flop: Option<Value>,
+    flip_flop_envelope: Option<RawEnvelope>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawInitial {
+    spins: Option<Value>,
+    bloch: Option<Vec<Vec<f64>>>,
+    modes: Option<Vec<Value>>,
+}
+
+#[derive(Deserialize, Default)]
+#[serde(deny_unknown_fields)]
+struct RawObserve {
+    spin_axes: Option<Vec<String>>,
+    patterns: Option<Vec<Value>>,
+    truncation_warning: Option<f64>,
+}
+
+#[derive(Deserialize, Clone)]
+#[serde(deny_unknown_fields)]
+struct RawEnvelope {
+    shape: String,
+    start: Option<f64>,
+    stop: Option<f64>,
+    from: Option<f64>,
+    to: Option<f64>,
+    times: Option<Vec<f64>>,
+    values: Option<Vec<f64>>,
+    file: Option<String>,
+}
+
+// ---------------------------------------------------------------------------------------------
+// Resolved plan
+
+/// Which solver runs the model.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Method {
+    /// Dense density matrix, adaptive Dormand–Prince 5(4).
+    DensityMatrix,
+}
+
+impl Method {
+    /// Name used in config and output.
+    pub fn name(self) -> &'static str {
+        match self {
+            Method::DensityMatrix => "density-matrix",
+        }
+    }
+}
+
+/// Numerical settings of a run.
+#[derive(Clone, Debug, PartialEq)]
+pub struct SolverPlan {
+    /// Solver.
+    pub method: Method,
+    /// Relative tolerance.
+    pub rtol: f64,
+    /// Absolute tolerance (on density-matrix elements).
+    pub atol: f64,
+    /// Largest step, in the time unit (∞ if unset).
+    pub max_step: f64,
+    /// Share of physical memory the run may use (0, 1].
+    pub memory_share: f64,
+    /// Worker threads; 0 = one per core.
+    pub threads: usize,
+}
+
+/// Which spin components to record.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub struct SpinAxes {
+    /// ⟨σˣ⟩.
+    pub x: bool,
+    /// ⟨σʸ⟩.
+    pub y: bool,
+    /// ⟨σᶻ⟩.
+    pub z: bool,
+}
+
+/// What to record at the sample times.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ObservePlan {
+    /// Spin components.
+    pub spin_axes: SpinAxes,
+    /// ±1 patterns for overlaps m = (1/N) Σ ξᵢ⟨σᶻᵢ⟩.
+    pub patterns: Vec<Vec<i8>>,
+    /// Warn when a mode's top Fock level holds more than this population.
+    pub truncation_warning: f64,
+}
+
+/// A fully checked run: the model in angular units, the initial state, times and settings.
+#[derive(Clone, Debug)]
+pub struct RunPlan {
+    /// Config file path.
+    pub path: PathBuf,
+    /// The config text as read.
+    pub source: String,
+    /// Optional title.
+    pub title: Option<String>,
+    /// Unit system.
+    pub units: Units,
+    /// The network (angular units).
+    pub network: Network,
+    /// Mode names (default `mode0`, …).
+    pub mode_names: Vec<String>,
+    /// Initial product state.
+    pub initial: ProductState,
+    /// Sample times, in the time unit.
+    pub times: Vec<f64>,
+    /// Solver settings.
+    pub solver: SolverPlan,
+    /// Observables.
+    pub observe: ObservePlan,
+}
+
+/// Read and resolve a config file.
+///
+/// # Errors
+/// [`ConfigErrors`] listing every problem found (a TOML syntax or type error stops at the first).
+pub fn load(path: &Path) -> Result<RunPlan, ConfigErrors> {
+    let text = std::fs::read_to_string(path).map_err(|e| {
+        ConfigErrors(vec![ConfigError {
+            file: path.to_path_buf(),
+            line: None,
+            key: String::new(),
+            message: format!("cannot read the config file: {e}"),
+        }])
+    })?;
+    parse(path, &text)
+}
+
+/// Resolve config text (read from `path`, which is used for messages and relative CSV files).
+///
+/// # Errors
+/// As [`load`].
+pub fn parse(path: &Path, text: &str) -> Result<RunPlan, ConfigErrors> {
+    let raw: RawConfig =
+        toml::from_str(text).map_err(|e| ConfigErrors(vec![serde_error(path, text, &e)]))?;
+    let mut r = Resolver {
+        path: path.to_path_buf(),
+        text: text.to_string(),
+        errors: Vec::new(),
+        doc: None,
+    };
+    r.doc = text.parse::<toml_edit::ImDocument<String>>().ok();
+    let plan = r.resolve(raw);
+    match plan {
+        Some(p) if r.errors.is_empty() => Ok(p),
+        _ => Err(ConfigErrors(r.errors)),
+    }
+}
+
+fn line_of(text: &str, offset: usize) -> usize {
+    text[..offset.min(text.len())].matches('\n').count() + 1
+}
+
+/// Turn a TOML/serde error into a located message with the dotted key and a suggestion.
+fn serde_error(path: &Path, text: &str, e: &toml::de::Error) -> ConfigError {
+    let line = e.span().map(|s| line_of(text, s.start));
+    let mut message = e.message().trim().to_string();
+    let key = line.map(|l| key_at_line(text, l)).unwrap_or_default();
+    if let Some(rest) = message.strip_prefix("unknown field `") {
+        if let Some(end) = rest.find('`') {
+            let bad = &rest[..end];
+            let allowed: Vec<&str> = rest[end..].split('`').skip(1).step_by(2).collect();
+            let mut m = format!("unknown key `{bad}`");
+            if let Some(best) = nearest(bad, &allowed) {
+                m.push_str(&format!(" (did you mean `{best}`?)"));
+            }
+            if !allowed.is_empty() {
+                m.push_str(&format!("; allowed here: {}", allowed.join(", ")));
+            }
+            message = m;
+        }
+    } else if message.starts_with("invalid type") {
+        message = format!("wrong type: {message}");
+    }
+    ConfigError {
+        file: path.to_path_buf(),
+        line,
+        key,
+        message,
+    }
+}
+
+/// Best-effort dotted key for a line: the enclosing `[table]` header plus the key on that line.
+fn key_at_line(text: &str, line: usize) -> String {
+    let lines: Vec<&str> = text.lines().collect();
+    let Some(this) = lines.get(line.saturating_sub(1)) else {
+        return String::new();
+    };
+    let mut header = String::new();
+    for l in lines[..line.saturating_sub(1)].iter().rev() {
+        let t = l.trim();
+        if t.starts_with('[') {
+            header = t.trim_matches(|c| c == '[' || c == ']').trim().to_string();
+            break;
+        }
+    }
+    let t = this.trim();
+    if t.starts_with('[') {
+        return t.trim_matches(|c| c == '[' || c == ']').trim().to_string();
+    }
+    let key = t.split('=').next().unwrap_or("").trim();
+    match (header.is_empty(), key.is_empty()) {
+        (true, _) => key.to_string(),
+        (false, true) => header,
+        (false, false) => format!("{header}.{key}"),
+    }
+}
+
+/// The allowed name closest to `bad` by edit distance, if reasonably close.
+pub fn nearest<'a>(bad: &str, allowed: &[&'a str]) -> Option<&'a str> {
+    let best = allowed
+        .iter()
+        .map(|a| (levenshtein(bad, a), *a))
+        .min_by_key(|x| x.0)?;
+    (best.0 <= 2.max(bad.len() / 3)).then_some(best.1)
+}
+
+fn levenshtein(a: &str, b: &str) -> usize {
+    let a: Vec<char> = a.chars().collect();
+    let b: Vec<char> = b.chars().collect();
+    let mut prev: Vec<usize> = (0..=b.len()).collect();
+    for i in 1..=a.len() {
+        let mut cur = vec![i; b.len() + 1];
+        for j in 1..=b.len() {
+            let sub = prev[j - 1] + usize::from(a[i - 1] != b[j - 1]);
+            cur[j] = sub.min(prev[j] + 1).min(cur[j - 1] + 1);
+        }
+        prev = cur;
+    }
+    prev[b.len()]
+}
+
+struct Resolver {
+    path: PathBuf,
+    text: String,
+    errors: Vec<ConfigError>,
+    doc: Option<toml_edit::ImDocument<String>>,
+}
+
+enum Node<'a> {
+    Item(&'a toml_edit::Item),
+    Value(&'a toml_edit::Value),
+    Table(&'a toml_edit::Table),
+}
+
+impl Resolver {
+    /// Locate a dotted path like `modes[1].levels` or `coupling.strength[2][0]` in the document.
+    fn locate(&self, key: &str) -> Option<usize> {
+        let doc = self.doc.as_ref()?;
+        let mut node = Node::Table(doc.as_table());
+        let mut best: Option<std::ops::Range<usize>> = None;
+        for seg in key.split('.') {
+            let (name, idx) = match seg.find('[') {
+                Some(p) => (&seg[..p], &seg[p..]),
+                None => (seg, ""),
+            };
+            let next = match node {
+                Node::Table(t) => t.get_key_value(name).map(|(k, it)| {
+                    best = k.span().or(it.span()).or(best.clone());
+                    Node::Item(it)
+                }),
+                Node::Item(it) => match it {
+                    toml_edit::Item::Table(t) => t.get_key_value(name).map(|(k, it)| {
+                        best = k.span().or(it.span()).or(best.clone());
+                        Node::Item(it)
+                    }),
+                    toml_edit::Item::Value(toml_edit::Value::InlineTable(t)) => {
+                        t.get_key_value(name).map(|(k, it)| {
+                            best = k.span().or(it.span()).or(best.clone());
+                            Node::Item(it)
+                        })
+                    }
+                    _ => None,
+                },
+                Node::Value(toml_edit::Value::InlineTable(t)) => {
+                    t.get_key_value(name).map(|(k, it)| {
+                        best = k.span().or(it.span()).or(best.clone());
+                        Node::Item(it)
+                    })
+                }
+                Node::Value(_) => None,
+            };
+            let Some(mut cur) = next else { break };
+            for part in idx.split(']').filter(|p| p.starts_with('[')) {
+                let Ok(i) = part[1..].parse::<usize>() else {
+                    break;
+                };
+                cur = match cur {
+                    Node::Item(toml_edit::Item::ArrayOfTables(a)) => match a.get(i) {
+                        Some(t) => {
+                            best = t.span().or(best.clone());
+                            Node::Table(t)
+                        }
+                        None => break,
+                    },
+                    Node::Item(toml_edit::Item::Value(toml_edit::Value::Array(a)))
+                    | Node::Value(toml_edit::Value::Array(a)) => match a.get(i) {
+                        Some(v) => {
+                            best = v.span().or(best.clone());
+                            Node::Value(v)
+                        }
+                        None => break,
+                    },
+                    _ => break,
+                };
+            }
+            node = cur;
+        }
+        best.map(|s| line_of(&self.text, s.start))
+    }
+
+    fn err(&mut self, key: &str, message: impl Into<String>) {
+        let line = self.locate(key);
+        self.errors.push(ConfigError {
+            file: self.path.clone(),
+            line,
+            key: key.into(),
+            message: message.into(),
+        });
+    }
+
+    fn rate(&mut self, key: &str, v: Option<f64>, units: Units, what: &str) -> f64 {
+        let x = v.unwrap_or(0.0);
+        if !x.is_finite() || x < 0.0 {
+            self.err(
+                key,
+                format!(
+                    "{what} must be a finite number ≥ 0 (got {x}); units: {}",
+                    units.frequency_label()
+                ),
+            );
+            return 0.0;
+        }
+        units.angular(x)
+    }
+
+    fn freq(&mut self, key: &str, v: Option<f64>, units: Units, what: &str) -> f64 {
+        let x = v.unwrap_or(0.0);
+        if !x.is_finite() {
+            self.err(
+                key,
+                format!(
+                    "{what} must be a finite number (got {x}); units: {}",
+                    units.frequency_label()
+                ),
+            );
+            return 0.0;
+        }
+        units.angular(x)
+    }
+
+    fn resolve(&mut self, raw: RawConfig) -> Option<RunPlan> {
+        // [units]
+        let units = match Units::parse(&raw.units.system, raw.units.frequency.as_deref()) {
+            Some(u) => u,
+            None => {
+                if raw.units.system != "physical" && raw.units.system != "dimensionless" {
+                    let hint = nearest(&raw.units.system, &["physical", "dimensionless"])
+                        .map(|s| format!(" (did you mean `{s}`?)"))
+                        .unwrap_or_default();
+                    self.err("units.system", format!("unknown unit system `{}`{hint}; allowed: \"physical\", \"dimensionless\"", raw.units.system));
+                } else {
+                    let got = raw.units.frequency.as_deref().unwrap_or("(missing)");
+                    self.err("units.frequency", format!("unknown frequency unit `{got}`; allowed with system = \"physical\": \"kHz\", \"MHz\", \"GHz\""));
+                }
+                Units::Dimensionless
+            }
+        };
+        if units == Units::Dimensionless
+            && raw.units.frequency.is_some()
+            && raw.units.system == "dimensionless"
+        {
+            self.err(
+                "units.frequency",
+                "`frequency` is only allowed with system = \"physical\"",
+            );
+        }
+
+        let times = self.resolve_time(&raw.time);
+        let solver = self.resolve_solver(&raw.solver);
+
+        // [sites]
+        let (n_sites, mut network) = match &raw.sites {
+            None => (0, Network::empty()),
+            Some(s) => self.resolve_sites(s, units),
+        };
+
+        // [[modes]]
+        let mut mode_names = Vec::new();
+        for (m, md) in raw.modes.iter().enumerate() {
+            let key = |k: &str| format!("modes[{m}].{k}");
+            let levels = if md.levels < 2 || md.levels > 1_000_000 {
+                self.err(&key("levels"), format!("a mode needs at least 2 Fock levels (got {}); allowed: an integer 2 … 1000000", md.levels));
+                2
+            } else {
+                md.levels as usize
+            };
+            let thermal = md.thermal.unwrap_or(0.0);
+            if !thermal.is_finite() || thermal < 0.0 {
+                self.err(&key("thermal"), format!("thermal occupation n_th must be a finite number ≥ 0 (got {thermal}; dimensionless, mean photons)"));
+            }
+            let drive_envelope = self.envelope(&key("drive_envelope"), md.drive_envelope.as_ref());
+            network.modes.push(ModeParams {
+                levels,
+                detuning: self.freq(&key("detuning"), md.detuning, units, "detuning Δc/2π"),
+                loss: self.rate(&key("loss"), md.loss, units, "loss rate κ/2π"),
+                thermal: if thermal.is_finite() && thermal >= 0.0 {
+                    thermal
+                } else {
+                    0.0
+                },
+                drive: self.freq(&key("drive"), md.drive, units, "drive amplitude ε/2π"),
+                drive_envelope,
+            });
+            mode_names.push(md.name.clone().unwrap_or_else(|| format!("mode{m}")));
+        }
+        let n_modes = network.modes.len();
+
+        // [coupling]
+        if let Some(c) = &raw.coupling {
+            network.coupling_form = match c.form.as_deref().unwrap_or("exchange") {
+                "exchange" => CouplingForm::Exchange,
+                "dipole" => CouplingForm::Dipole,
+                other => {
+                    self.err("coupling.form", format!("unknown coupling form `{other}`; allowed: \"exchange\" (g(aσ⁺ + a†σ⁻)), \"dipole\" (g(a + a†)σˣ)"));
+                    CouplingForm::Exchange
+                }
+            };
+            if let Some(g) = self.matrix(
+                "coupling.strength",
+                &c.strength,
+                n_sites,
+                n_modes,
+                "sites × modes",
+            ) {
+                network.coupling = g
+                    .into_iter()
+                    .map(|row| row.into_iter().map(|x| units.angular(x)).collect())
+                    .collect();
+            }
+            network.coupling_envelope = self.envelope("coupling.envelope", c.envelope.as_ref());
+        }
+
+        // [spin_spin]
+        if let Some(ss) = &raw.spin_spin {
+            for (name, val, env) in [
+                ("zz", &ss.zz, &ss.zz_envelope),
+                ("flip_flop", &ss.flip_flop, &ss.flip_flop_envelope),
+            ] {
+                let Some(v) = val else { continue };
+                let key = format!("spin_spin.{name}");
+                if let Some(m) = self.matrix(&key, v, n_sites, n_sites, "sites × sites") {
+                    let mut ok = true;
+                    for i in 0..n_sites {
+                        if m[i][i] != 0.0 {
+                            self.err(&format!("{key}[{i}][{i}]"), format!("the diagonal must be 0 (got {}); a site does not couple to itself", m[i][i]));
+                            ok = false;
+                        }
+                        for j in 0..i {
+                            if m[i][j] != m[j][i] {
+                                self.err(&format!("{key}[{i}][{j}]"), format!("the matrix must be symmetric: [{i}][{j}] = {} but [{j}][{i}] = {}", m[i][j], m[j][i]));
+                                ok = false;
+                            }
+                        }
+                    }
+                    if ok {
+                        let m: Vec<Vec<f64>> = m
+                            .into_iter()
+                            .map(|r| r.into_iter().map(|x| units.angular(x)).collect())
+                            .collect();
+                        if name == "zz" {
+                            network.zz = m;
+                        } else {
+                            network.flip_flop = m;
+                        }
+                    }
+                }
+                let e = self.envelope(&format!("spin_spin.{name}_envelope"), env.as_ref());
+                if name == "zz" {
+                    network.zz_envelope = e;
+                } else {
+                    network.flip_flop_envelope = e;
+                }
+            }
+        }
+
+        let initial = self.resolve_initial(raw.initial.as_ref(), n_sites, &network.modes);
+        let observe = self.resolve_observe(&raw.observe, n_sites);
+
+        // final structural check by the model itself (should pass after the checks above)
+        if self.errors.is_empty() {
+            if let Err(e) = network.build() {
+                self.err("", format!("the model is inconsistent: {e}"));
+            }
+        }
+        Some(RunPlan {
+            path: self.path.clone(),
+            source: self.text.clone(),
+            title: raw.title,
+            units,
+            network,
+            mode_names,
+            initial,
+            times,
+            solver,
+            observe,
+        })
+    }
+
+    fn resolve_time(&mut self, t: &RawTime) -> Vec<f64> {
+        match (&t.at, t.stop, t.samples) {
+            (Some(at), None, None) => {
+                if at.is_empty() {
+                    self.err("time.at", "needs at least one sample time");
+                } else if at.iter().any(|x| !x.is_finite() || *x < 0.0) {
+                    self.err(
+                        "time.at",
+                        "sample times must be finite and ≥ 0 (the run starts at t = 0)",
+                    );
+                } else if at.windows(2).any(|w| w[1] <= w[0]) {
+                    self.err("time.at", "sample times must be strictly increasing");
+                }
+                let mut v = at.clone();
+                if v.first().is_some_and(|&x| x > 0.0) {
+                    v.insert(0, 0.0);
+                }
+                v
+            }
+            (None, Some(stop), samples) => {
+                let n = samples.unwrap_or(101);
+                if !stop.is_finite() || stop <= 0.0 {
+                    self.err(
+                        "time.stop",
+                        format!("the end time must be a finite number > 0 (got {stop})"),
+                    );
+                    return vec![0.0];
+                }
+                if !(2..=10_000_000).contains(&n) {
+                    self.err(
+                        "time.samples",
+                        format!("the number of samples must be an integer 2 … 10000000 (got {n})"),
+                    );
+                    return vec![0.0, stop];
+                }
+                let n = n as usize;
+                (0..n)
+                    .map(|k| {
+                        if k + 1 == n {
+                            stop
+                        } else {
+                            stop * k as f64 / (n - 1) as f64
+                        }
+                    })
+                    .collect()
+            }
+            _ => {
+                self.err("time", "give either `stop` (with optional `samples`, default 101) or an explicit list `at`, not both");
+                vec![0.0]
+            }
+        }
+    }
+
+    fn resolve_solver(&mut self, s: &RawSolver) -> SolverPlan {
+        let method = match s.method.as_deref().unwrap_or("density-matrix") {
+            "density-matrix" => Method::DensityMatrix,
+            other => {
+                self.err(
+                    "solver.method",
+                    format!("unknown method `{other}`; allowed: \"density-matrix\""),
+                );
+                Method::DensityMatrix
+            }
+        };
+        let mut tol = |key: &str, v: Option<f64>, default: f64| {
+            let x = v.unwrap_or(default);
+            if !(x > 0.0 && x < 1.0) {
+                self.err(
+                    key,
+                    format!("a tolerance must be a number in (0, 1) (got {x})"),
+                );
+                return default;
+            }
+            x
+        };
+        let rtol = tol("solver.rtol", s.rtol, 1e-6);
+        let atol = tol("solver.atol", s.atol, 1e-9);
+        let max_step = s.max_step.unwrap_or(f64::INFINITY);
+        if !(max_step > 0.0) {
+            self.err(
+                "solver.max_step",
+                format!("must be > 0, in the time unit (got {max_step})"),
+            );
+        }
+        let memory_share = s.memory_share.unwrap_or(0.5);
+        if !(memory_share > 0.0 && memory_share <= 1.0) {
+            self.err(
+                "solver.memory_share",
+                format!("must be a fraction in (0, 1] of physical memory (got {memory_share})"),
+            );
+        }
+        let threads = s.threads.unwrap_or(0);
+        if !(0..=4096).contains(&threads) {
+            self.err(
+                "solver.threads",
+                format!("must be an integer 0 … 4096, 0 meaning one per core (got {threads})"),
+            );
+        }
+        SolverPlan {
+            method,
+            rtol,
+            atol,
+            max_step: if max_step > 0.0 {
+                max_step
+            } else {
+                f64::INFINITY
+            },
+            memory_share: if memory_share > 0.0 && memory_share <= 1.0 {
+                memory_share
+            } else {
+                0.5
+            },
+            threads: threads.clamp(0, 4096) as usize,
+        }
+    }
+
+    fn resolve_sites(&mut self, s: &RawSites, units: Units) -> (usize, Network) {
+        let mut net = Network::empty();
+        if !(1..=24).contains(&s.count) {
+            self.err(
+                "sites.count",
+                format!(
+                    "the number of sites must be an integer 1 … 24 (got {})",
+                    s.count
+                ),
+            );
+            return (0, net);
+        }
+        let n = s.count as usize;
+        let base = RawSiteValues {
+            detuning: s.detuning,
+            decay: s.decay,
+            dephasing: s.dephasing,
+            pump: s.pump,
+            rabi: s.rabi,
+        };
+        let mut per_site: Vec<(RawSiteValues, String)> = (0..n)
+            .map(|_| (base.clone(), "sites".to_string()))
+            .collect();
+        let mut seen = vec![false; n];
+        for (k, o) in s.overrides.iter().enumerate() {
+            let key = format!("sites.override[{k}]");
+            if o.index < 0 || o.index as usize >= n {
+                self.err(
+                    &format!("{key}.index"),
+                    format!(
+                        "site index {} is out of range; allowed: 0 … {}",
+                        o.index,
+                        n - 1
+                    ),
+                );
+                continue;
+            }
+            let i = o.index as usize;
+            if seen[i] {
+                self.err(
+                    &format!("{key}.index"),
+                    format!("site {i} is overridden twice"),
+                );
+            }
+            seen[i] = true;
+            let v = &o.values;
+            let p = &mut per_site[i].0;
+            p.detuning = v.detuning.or(p.detuning);
+            p.decay = v.decay.or(p.decay);
+            p.dephasing = v.dephasing.or(p.dephasing);
+            p.pump = v.pump.or(p.pump);
+            p.rabi = v.rabi.or(p.rabi);
+            per_site[i].1 = key;
+        }
+        for (v, key) in per_site {
+            let k = |f: &str| format!("{key}.{f}");
+            net.sites.push(SiteParams {
+                detuning: self.freq(&k("detuning"), v.detuning, units, "detuning Δa/2π"),
+                decay: self.rate(&k("decay"), v.decay, units, "decay rate γ/2π"),
+                dephasing: self.rate(&k("dephasing"), v.dephasing, units, "dephasing rate γφ/2π"),
+                pump: self.rate(&k("pump"), v.pump, units, "pump rate P/2π"),
+                rabi: self.freq(&k("rabi"), v.rabi, units, "Rabi frequency Ω/2π"),
+            });
+        }
+        net.rabi_envelope = self.envelope("sites.rabi_envelope", s.rabi_envelope.as_ref());
+        (n, net)
+    }
+
+    /// A `rows × cols` matrix: either one number (all entries) or nested arrays.
+    fn matrix(
+        &mut self,
+        key: &str,
+        v: &Value,
+        rows: usize,
+        cols: usize,
+        what: &str,
+    ) -> Option<Vec<Vec<f64>>> {
+        let num = |x: &Value| match x {
+            Value::Float(f) => Some(*f),
+            Value::Integer(i) => Some(*i as f64),
+            _ => None,
+        };
+        if let Some(x) = num(v) {
+            if !x.is_finite() {
+                self.err(key, format!("must be finite (got {x})"));
+                return None;
+            }
+            return Some(vec![vec![x; cols]; rows]);
+        }
+        let Value::Array(rs) = v else {
+            self.err(
+                key,
+                format!(
+                    "wrong type: expected a number or a {what} matrix ({rows}×{cols}) of numbers"
+                ),
+            );
+            return None;
+        };
+        if rs.len() != rows {
+            self.err(
+                key,
+                format!(
+                    "wrong shape: expected {rows} rows ({what} = {rows}×{cols}), got {} rows",
+                    rs.len()
+                ),
+            );
+            return None;
+        }
+        let mut out = Vec::with_capacity(rows);
+        for (i, r) in rs.iter().enumerate() {
+            let Value::Array(cs) = r else {
+                self.err(
+                    &format!("{key}[{i}]"),
+                    format!("wrong type: row {i} must be an array of {cols} numbers"),
+                );
+                return None;
+            };
+            if cs.len() != cols {
+                self.err(&format!("{key}[{i}]"), format!("wrong shape: row {i} has {} entries, expected {cols} ({what} = {rows}×{cols})", cs.len()));
+                return None;
+            }
+            let mut row = Vec::with_capacity(cols);
+            for (j, c) in cs.iter().enumerate() {
+                match num(c) {
+                    Some(x) if x.is_finite() => row.push(x),
+                    _ => {
+                        self.err(
+                            &format!("{key}[{i}][{j}]"),
+                            format!("must be a finite number (got {c})"),
+                        );
+                        return None;
+                    }
+                }
+            }
+            out.push(row);
+        }
+        Some(out)
+    }
+
+    fn envelope(&mut self, key: &str, e: Option<&RawEnvelope>) -> Envelope {
+        let Some(e) = e else {
+            return Envelope::Constant;
+        };
+        let fields_used = |names: &[&str]| -> Vec<&'static str> {
+            let mut extra = Vec::new();
+            let all: [(&'static str, bool); 7] = [
+                ("start", e.start.is_some()),
+                ("stop", e.stop.is_some()),
+                ("from", e.from.is_some()),
+                ("to", e.to.is_some()),
+                ("times", e.times.is_some()),
+                ("values", e.values.is_some()),
+                ("file", e.file.is_some()),
+            ];
+            for (n, set) in all {
+                if set && !names.contains(&n) {
+                    extra.push(n);
+                }
+            }
+            extra
+        };
+        let shapes = ["constant", "ramp", "smooth-step", "table"];
+        let (allowed, env): (&[&str], Option<Envelope>) = match e.shape.as_str() {
+            "constant" => (&[], Some(Envelope::Constant)),
+            "ramp" | "smooth-step" => {
+                let names: &[&str] = &["start", "stop", "from", "to"];
+                match (e.start, e.stop) {
+                    (Some(start), Some(stop))
+                        if start.is_finite() && stop.is_finite() && stop > start =>
+                    {
+                        let from = e.from.unwrap_or(0.0);
+                        let to = e.to.unwrap_or(1.0);
+                        if !from.is_finite() || !to.is_finite() {
+                            self.err(key, "`from` and `to` must be finite numbers");
+                        }
+                        let env = if e.shape == "ramp" {
+                            Envelope::Ramp {
+                                start,
+                                stop,
+                                from,
+                                to,
+                            }
+                        } else {
+                            Envelope::SmoothStep {
+                                start,
+                                stop,
+                                from,
+                                to,
+                            }
+                        };
+                        (names, Some(env))
+                    }
+                    _ => {
+                        self.err(key, format!("shape \"{}\" needs finite `start` < `stop` (time unit); `from` (default 0) and `to` (default 1) are optional", e.shape));
+                        (names, None)
+                    }
+                }
+            }
+            "table" => {
+                let names: &[&str] = &["times", "values", "file"];
+                let table = match (&e.file, &e.times, &e.values) {
+                    (Some(f), None, None) => self.csv_table(key, f),
+                    (None, Some(t), Some(v)) => Some((t.clone(), v.clone())),
+                    _ => {
+                        self.err(key, "shape \"table\" needs either `times` and `values` (same length) or `file` (a CSV of time,value rows)");
+                        None
+                    }
+                };
+                let env = table.and_then(|(t, v)| match Envelope::table(t, v) {
+                    Ok(env) => Some(env),
+                    Err(err) => {
+                        self.err(key, err.to_string());
+                        None
+                    }
+                });
+                (names, env)
+            }
+            other => {
+                let hint = nearest(other, &shapes)
+                    .map(|s| format!(" (did you mean \"{s}\"?)"))
+                    .unwrap_or_default();
+                self.err(&format!("{key}.shape"), format!("unknown envelope shape \"{other}\"{hint}; allowed: \"constant\", \"ramp\", \"smooth-step\", \"table\""));
+                (&[], None)
+            }
+        };
+        let extra = fields_used(allowed);
+        if env.is_some() && !extra.is_empty() {
+            self.err(
+                key,
+                format!(
+                    "shape \"{}\" does not use {}",
+                    e.shape,
+                    extra
+                        .iter()
+                        .map(|s| format!("`{s}`"))
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                ),
+            );
+        }
+        env.unwrap_or(Envelope::Constant)
+    }
+
+    fn csv_table(&mut self, key: &str, file: &str) -> Option<(Vec<f64>, Vec<f64>)> {
+        let base = self.path.parent().unwrap_or(Path::new("."));
+        let p = base.join(file);
+        let text = match std::fs::read_to_string(&p) {
+            Ok(t) => t,
+            Err(e) => {
+                self.err(
+                    &format!("{key}.file"),
+                    format!("cannot read the envelope CSV `{}`: {e}", p.display()),
+                );
+                return None;
+            }
+        };
+        let mut times = Vec::new();
+        let mut values = Vec::new();
+        for (k, line) in text.lines().enumerate() {
+            let l = line.trim();
+            if l.is_empty() || l.starts_with('#') {
+                continue;
+            }
+            let cols: Vec<&str> = l.split(',').map(str::trim).collect();
+            let parsed =
+                (cols.len() == 2).then(|| (cols[0].parse::<f64>(), cols[1].parse::<f64>()));
+            match parsed {
+                Some((Ok(t), Ok(v))) => {
+                    times.push(t);
+                    values.push(v);
+                }
+                _ if times.is_empty() && k == 0 && cols.len() == 2 => {} // a header line
+                _ => {
+                    self.err(
+                        &format!("{key}.file"),
+                        format!(
+                            "{}:{}: expected two comma-separated numbers `time,value`, got `{l}`",
+                            p.display(),
+                            k + 1
+                        ),
+                    );
+                    return None;
+                }
+            }
+        }
+        if times.is_empty() {
+            self.err(
+                &format!("{key}.file"),
+                format!("the envelope CSV `{}` has no data rows", p.display()),
+            );
+            return None;
+        }
+        Some((times, values))
+    }
+
+    fn spin_list(&mut self, key: &str, v: &Value, n: usize) -> Option<Vec<i8>> {
+        let signs: Option<Vec<i8>> = match v {
+            Value::String(s) => s
+                .chars()
+                .filter(|c| !c.is_whitespace())
+                .map(|c| match c {
+                    '+' | 'u' | '1' => Some(1),
+                    '-' | 'd' | '0' => Some(-1),
+                    _ => None,
+                })
+                .collect(),
+            Value::Array(a) => a
+                .iter()
+                .map(|x| match x {
+                    Value::Integer(1) => Some(1),
+                    Value::Integer(-1) => Some(-1),
+                    _ => None,
+                })
+                .collect(),
+            _ => None,
+        };
+        let Some(signs) = signs else {
+            self.err(key, "expected a string of + and − signs (e.g. \"+-+\"; + is the excited state |e⟩, s = +1) or a list of +1/−1");
+            return None;
+        };
+        if signs.len() != n {
+            self.err(
+                key,
+                format!("has length {} but there are {n} sites", signs.len()),
+            );
+            return None;
+        }
+        Some(signs)
+    }
+
+    fn resolve_initial(
+        &mut self,
+        init: Option<&RawInitial>,
+        n: usize,
+        modes: &[ModeParams],
+    ) -> ProductState {
+        let mut spins = vec![SpinInit::from_sign(-1); n];
+        let mut mstates = vec![ModeInit::Vacuum; modes.len()];
+        let Some(init) = init else {
+            return ProductState {
+                spins,
+                modes: mstates,
+            };
+        };
+        match (&init.spins, &init.bloch) {
+            (Some(_), Some(_)) => self.err("initial", "give either `spins` or `bloch`, not both"),
+            (Some(v), None) => {
+                if let Some(s) = self.spin_list("initial.spins", v, n) {
+                    spins = s.into_iter().map(SpinInit::from_sign).collect();
+                }
+            }
+            (None, Some(b)) => {
+                if b.len() != n
+                    || b.iter()
+                        .any(|p| p.len() != 2 || p.iter().any(|x| !x.is_finite()))
+                {
+                    self.err(
+                        "initial.bloch",
+                        format!(
+                            "expected {n} pairs [θ, φ] of finite angles in radians (θ = 0 is |e⟩)"
+                        ),
+                    );
+                } else {
+                    spins = b
+                        .iter()
+                        .map(|p| SpinInit {
+                            theta: p[0],
+                            phi: p[1],
+                        })
+                        .collect();
+                }
+            }
+            (None, None) => {}
+        }
+        if let Some(ms) = &init.modes {
+            if ms.len() != modes.len() {
+                self.err(
+                    "initial.modes",
+                    format!(
+                        "has {} entries but there are {} modes",
+                        ms.len(),
+                        modes.len()
+                    ),
+                );
+            } else {
+                for (m, v) in ms.iter().enumerate() {
+                    let key = format!("initial.modes[{m}]");
+                    let levels = modes[m].levels;
+                    let st = match v {
+                        Value::String(s) if s == "vacuum" => Some(ModeInit::Vacuum),
+                        Value::Table(t) if t.len() == 1 => {
+                            let (k, x) = t.iter().next().expect("table has one entry");
+                            match (k.as_str(), x) {
+                                ("fock", Value::Integer(n))
+                                    if *n >= 0 && (*n as usize) < levels =>
+                                {
+                                    Some(ModeInit::Fock(*n as usize))
+                                }
+                                ("fock", _) => {
+                                    self.err(&key, format!("Fock number must be an integer 0 … {} (the mode keeps {levels} levels)", levels - 1));
+                                    None
+                                }
+                                ("coherent", x) => match complex(x) {
+                                    Some(a) => Some(ModeInit::Coherent(a)),
+                                    None => {
+                                        self.err(
+                                            &key,
+                                            "coherent amplitude α must be a number or [re, im]",
+                                        );
+                                        None
+                                    }
+                                },
+                                ("thermal", x) => {
+                                    match x.as_float().or(x.as_integer().map(|i| i as f64)) {
+                                        Some(nb) if nb.is_finite() && nb >= 0.0 => {
+                                            Some(ModeInit::Thermal(nb))
+                                        }
+                                        _ => {
+                                            self.err(
+                                                &key,
+                                                "thermal occupation n̄ must be a finite number ≥ 0",
+                                            );
+                                            None
+                                        }
+                                    }
+                                }
+                                _ => None,
+                            }
+                        }
+                        _ => None,
+                    };
+                    match st {
+                        Some(s) => mstates[m] = s,
+                        None if !self.errors.iter().any(|e| e.key == key) => self.err(
+                            &key,
+                            "expected \"vacuum\", { fock = n }, { coherent = α or [re, im] } or { thermal = n̄ }",
+                        ),
+                        None => {}
+                    }
+                }
+            }
+        }
+        ProductState {
+            spins,
+            modes: mstates,
+        }
+    }
+
+    fn resolve_observe(&mut self, o: &RawObserve, n: usize) -> ObservePlan {
+        let mut axes = SpinAxes {
+            z: true,
+            ..Default::default()
+        };
+        if let Some(list) = &o.spin_axes {
+            axes = SpinAxes::default();
+            for (k, a) in list.iter().enumerate() {
+                match a.as_str() {
+                    "x" => axes.x = true,
+                    "y" => axes.y = true,
+                    "z" => axes.z = true,
+                    other => self.err(
+                        &format!("observe.spin_axes[{k}]"),
+                        format!("unknown axis `{other}`; allowed: \"x\", \"y\", \"z\""),
+                    ),
+                }
+            }
+        }
+        let mut patterns = Vec::new();
+        for (k, p) in o.patterns.iter().flatten().enumerate() {
+            if let Some(s) = self.spin_list(&format!("observe.patterns[{k}]"), p, n) {
+                patterns.push(s);
+            }
+        }
+        let tw = o.truncation_warning.unwrap_or(1e-3);
+        if !(tw > 0.0 && tw < 1.0) {
+            self.err(
+                "observe.truncation_warning",
+                format!("must be a population in (0, 1) (got {tw})"),
+            );
+        }
+        ObservePlan {
+            spin_axes: axes,
+            patterns,
+            truncation_warning: tw,
+        }
+    }
+}
+
+fn complex(v: &Value) -> Option<C64> {
+    let f = |x: &Value| {
+        x.as_float()
+            .or(x.as_integer().map(|i| i as f64))
+            .filter(|f| f.is_finite())
+    };
+    match v {
+        Value::Array(a) if a.len() == 2 => Some(C64::new(f(&a[0])?, f(&a[1])?)),
+        x => Some(C64::new(f(x)?, 0.0)),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn parse_str(s: &str) -> Result<RunPlan, ConfigErrors> {
+        parse(Path::new("test.toml"), s)
+    }
+
+    const MINIMAL: &str = r#"
+[units]
+system = "physical"
+frequency = "MHz"
+[time]
+stop = 1.0
+samples = 11
+[sites]
+count = 2
+decay = 0.5
+[[sites.override]]
+index = 1
+decay = 1.0
+[[modes]]
+levels = 3
+loss = 2.0
+[coupling]
+strength = 0.25
+"#;
+
+    #[test]
+    fn minimal_config_resolves_with_two_pi() {
+        let p = parse_str(MINIMAL).unwrap();
+        assert_eq!(p.times.len(), 11);
+        assert_eq!(p.times[10], 1.0);
+        let tau = std::f64::consts::TAU;
+        assert_eq!(p.network.sites[0].decay, 0.5 * tau);
+        assert_eq!(p.network.sites[1].decay, 1.0 * tau);
+        assert_eq!(p.network.modes[0].loss, 2.0 * tau);
+        assert_eq!(p.network.coupling, vec![vec![0.25 * tau]; 2]);
+        assert_eq!(p.initial.spins[0], SpinInit::from_sign(-1));
+    }
+
+    #[test]
+    fn errors_name_line_and_key() {
+        let bad = MINIMAL.replace("decay = 0.5", "decay = -0.5");
+        let e = parse_str(&bad).unwrap_err();
+        assert_eq!(e.0.len(), 1, "{e}");
+        assert_eq!(e.0[0].key, "sites.decay");
+        assert_eq!(e.0[0].line, Some(10));
+        let bad = MINIMAL.replace("loss = 2.0", "los = 2.0");
+        let e = parse_str(&bad).unwrap_err().to_string();
+        assert!(e.contains("did you mean `loss`"), "{e}");
+        assert!(e.contains("test.toml:16"), "{e}");
+    }
+
+    #[test]
+    fn nearest_key_suggestion() {
+        assert_eq!(nearest("decy", &["decay", "detuning"]), Some("decay"));
+        assert_eq!(nearest("zzzzzz", &["decay"]), None);
+    }
+}
