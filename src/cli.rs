@@ -44,16 +44,20 @@ fn load(file: &Path) -> Result<RunPlan, AppError> {
 
 fn check(file: &Path) -> Result<(), AppError> {
     let plan = load(file)?;
-    let me = plan
+    // no operator is built here: the memory guard must speak before anything large is allocated
+    let space = plan
         .network
-        .build()
+        .space()
         .map_err(|e| AppError::Input(format!("{}: {e}", file.display())))?;
     plan.initial
-        .density_check(&me.space)
+        .density_check(&space)
         .map_err(|e| AppError::Input(format!("{}: initial state: {e}", file.display())))?;
-    let dim = me.space.dim();
+    let dim = space.dim();
     let mem = run::memory_estimate(&plan, dim);
     print!("{}", report::check_text(&plan, dim, &mem));
+    for w in run::initial_truncation_warnings(&plan) {
+        eprintln!("warning: {w}");
+    }
     run::memory_guard(&plan, &mem)?;
     println!("\nok: {} is valid", file.display());
     Ok(())
@@ -78,6 +82,9 @@ fn run_cmd(
         plan.solver.threads = t;
     }
     let out = out.unwrap_or_else(|| default_output(file));
+    if out.is_dir() {
+        return Err(AppError::Input(format!("the output path {} is a directory; give a file name", out.display())));
+    }
     if let Some(parent) = out.parent().filter(|p| !p.as_os_str().is_empty()) {
         if !parent.is_dir() {
             return Err(AppError::Input(format!(

@@ -106,8 +106,7 @@ struct RawSolver {
     threads: Option<i64>,
 }
 
-#[derive(Deserialize, Default, Clone)]
-#[serde(deny_unknown_fields)]
+#[derive(Default, Clone)]
 struct RawSiteValues {
     detuning: Option<f64>,
     decay: Option<f64>,
@@ -134,8 +133,11 @@ struct RawSites {
 #[serde(deny_unknown_fields)]
 struct RawSiteOverride {
     index: i64,
-    #[serde(flatten)]
-    values: RawSiteValues,
+    detuning: Option<f64>,
+    decay: Option<f64>,
+    dephasing: Option<f64>,
+    pump: Option<f64>,
+    rabi: Option<f64>,
 }
 
 #[derive(Deserialize)]
@@ -323,12 +325,12 @@ fn line_of(text: &str, offset: usize) -> usize {
 /// Turn a TOML/serde error into a located message with the dotted key and a suggestion.
 fn serde_error(path: &Path, text: &str, e: &toml::de::Error) -> ConfigError {
     let line = e.span().map(|s| line_of(text, s.start));
-    let mut message = e.message().trim().to_string();
+    let mut message = e.message().trim().replace('\n', "; ");
     let key = line.map(|l| key_at_line(text, l)).unwrap_or_default();
     if let Some(rest) = message.strip_prefix("unknown field `") {
         if let Some(end) = rest.find('`') {
             let bad = &rest[..end];
-            let allowed: Vec<&str> = rest[end..].split('`').skip(1).step_by(2).collect();
+            let allowed: Vec<&str> = rest[end..].split('`').skip(2).step_by(2).collect();
             let mut m = format!("unknown key `{bad}`");
             if let Some(best) = nearest(bad, &allowed) {
                 m.push_str(&format!(" (did you mean `{best}`?)"));
@@ -356,10 +358,15 @@ fn key_at_line(text: &str, line: usize) -> String {
         return String::new();
     };
     let mut header = String::new();
-    for l in lines[..line.saturating_sub(1)].iter().rev() {
+    for (k, l) in lines[..line.saturating_sub(1)].iter().enumerate().rev() {
         let t = l.trim();
         if t.starts_with('[') {
             header = t.trim_matches(|c| c == '[' || c == ']').trim().to_string();
+            if t.starts_with("[[") {
+                // index of this array-of-tables entry
+                let idx = lines[..k].iter().filter(|x| x.trim() == t).count();
+                header = format!("{header}[{idx}]");
+            }
             break;
         }
     }
@@ -479,6 +486,10 @@ impl Resolver {
     }
 
     fn err(&mut self, key: &str, message: impl Into<String>) {
+        let message = message.into();
+        if self.errors.iter().any(|e| e.key == key && e.message == message) {
+            return; // a default shared by several sites is reported once
+        }
         let line = self.locate(key);
         self.errors.push(ConfigError {
             file: self.path.clone(),
@@ -559,7 +570,7 @@ impl Resolver {
         for (m, md) in raw.modes.iter().enumerate() {
             let key = |k: &str| format!("modes[{m}].{k}");
             let levels = if md.levels < 2 || md.levels > 1_000_000 {
-                self.err(&key("levels"), format!("a mode needs at least 2 Fock levels (got {}); allowed: an integer 2 … 1000000", md.levels));
+                self.err(&key("levels"), format!("the Fock truncation needs at least 2 Fock levels and at most 1000000 (got {}); allowed: an integer 2 … 1000000", md.levels));
                 2
             } else {
                 md.levels as usize
@@ -618,7 +629,11 @@ impl Resolver {
             ] {
                 let Some(v) = val else { continue };
                 let key = format!("spin_spin.{name}");
-                if let Some(m) = self.matrix(&key, v, n_sites, n_sites, "sites × sites") {
+                if let Some(mut m) = self.matrix(&key, v, n_sites, n_sites, "sites × sites") {
+                    if v.is_float() || v.is_integer() {
+                        // one number means every pair i ≠ j
+                        (0..n_sites).for_each(|i| m[i][i] = 0.0);
+                    }
                     let mut ok = true;
                     for i in 0..n_sites {
                         if m[i][i] != 0.0 {
@@ -658,7 +673,7 @@ impl Resolver {
 
         // final structural check by the model itself (should pass after the checks above)
         if self.errors.is_empty() {
-            if let Err(e) = network.build() {
+            if let Err(e) = network.validate() {
                 self.err("", format!("the model is inconsistent: {e}"));
             }
         }
@@ -837,7 +852,7 @@ impl Resolver {
                 );
             }
             seen[i] = true;
-            let v = &o.values;
+            let v = o;
             let p = &mut per_site[i].0;
             p.detuning = v.detuning.or(p.detuning);
             p.decay = v.decay.or(p.decay);

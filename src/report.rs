@@ -64,7 +64,7 @@ pub fn check_text(plan: &RunPlan, dim: usize, mem: &MemoryEstimate) -> String {
         .collect();
     let _ = writeln!(
         s,
-        "space       {} sites (2 levels each), {} modes ({}) → dimension d = {dim}",
+        "space       {} site(s) (2 levels each), {} mode(s) ({}) → dimension d = {dim}",
         net.sites.len(),
         net.modes.len(),
         if levels.is_empty() {
@@ -170,24 +170,13 @@ pub fn check_text(plan: &RunPlan, dim: usize, mem: &MemoryEstimate) -> String {
             }
         }
     }
-    if let Ok(me) = net.build() {
-        let ch: Vec<String> = me.jumps.iter().map(|j| j.channel.label()).collect();
-        let _ = writeln!(
-            s,
-            "  jump operators ({}): {}",
-            ch.len(),
-            if ch.is_empty() {
-                "none".into()
-            } else {
-                ch.join(", ")
-            }
-        );
-        let _ = me
-            .jumps
-            .iter()
-            .filter(|j| matches!(j.channel, Channel::ModeLoss(_)))
-            .count();
-    }
+    let ch: Vec<String> = net.channels().iter().map(Channel::label).collect();
+    let _ = writeln!(
+        s,
+        "  jump operators ({}): {}",
+        ch.len(),
+        if ch.is_empty() { "none".into() } else { ch.join(", ") }
+    );
     // derived figures
     let mut derived = Vec::new();
     for (i, st) in net.sites.iter().enumerate() {
@@ -264,11 +253,12 @@ pub fn summary_table(plan: &RunPlan, res: &RunResult) -> String {
     let t0 = res.times.first().copied().unwrap_or(0.0);
     let t1 = res.times.last().copied().unwrap_or(0.0);
     let mut s = String::new();
-    let h0 = format!("t = {} {tu}", sig(t0));
-    let h1 = format!("t = {} {tu}", sig(t1));
+    let tu = if plan.units.seconds_per_time_unit().is_some() { format!(" {tu}") } else { String::new() };
+    let h0 = format!("t = {}{tu}", sig(t0));
+    let h1 = format!("t = {}{tu}", sig(t1));
     let _ = writeln!(
         s,
-        "{:<22} {:<10} {:<14} {:>14} {:>14} {:>14} {:>14}",
+        "{:<22} {:<10} {:<22} {:>14} {:>14} {:>14} {:>14}",
         "quantity", "row", "unit", h0, h1, "min", "max"
     );
     for se in &res.series {
@@ -279,7 +269,7 @@ pub fn summary_table(plan: &RunPlan, res: &RunResult) -> String {
             let max = row.iter().copied().fold(f64::NEG_INFINITY, f64::max);
             let _ = writeln!(
                 s,
-                "{:<22} {:<10} {:<14} {:>14.6e} {:>14.6e} {:>14.6e} {:>14.6e}",
+                "{:<22} {:<10} {:<22} {:>14.6e} {:>14.6e} {:>14.6e} {:>14.6e}",
                 se.name,
                 label,
                 se.units,
@@ -292,7 +282,7 @@ pub fn summary_table(plan: &RunPlan, res: &RunResult) -> String {
     }
     let _ = writeln!(
         s,
-        "\nsolver: {} steps ({} rejected), {} right-hand-side evaluations, {:.3} s wall on {} threads, d = {}",
+        "\nsolver: {} steps ({} rejected), {} right-hand-side evaluations, {:.3} s wall on {} thread(s), d = {}",
         res.stats.steps, res.stats.rejected, res.stats.rhs_evals, res.wall_seconds, res.threads, res.dim
     );
     s

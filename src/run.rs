@@ -80,7 +80,9 @@ pub fn physical_memory() -> Option<u128> {
 /// Human-readable byte count.
 pub fn bytes_label(b: u128) -> String {
     let b = b as f64;
-    if b >= 1024f64.powi(3) {
+    if b >= 1024f64.powi(4) {
+        format!("{:.2} TiB", b / 1024f64.powi(4))
+    } else if b >= 1024f64.powi(3) {
         format!("{:.2} GiB", b / 1024f64.powi(3))
     } else if b >= 1024f64.powi(2) {
         format!("{:.1} MiB", b / 1024f64.powi(2))
@@ -117,11 +119,15 @@ pub fn memory_guard(plan: &RunPlan, est: &MemoryEstimate) -> Result<(), AppError
         return Ok(());
     }
     let levels: Vec<usize> = plan.network.modes.iter().map(|m| m.levels).collect();
+    let raise = if est.physical.is_some_and(|p| est.needed < p) {
+        ", or raise `memory_share` if the machine is otherwise idle"
+    } else {
+        " (more than this machine's whole memory, so raising `memory_share` cannot help)"
+    };
     Err(AppError::Input(format!(
         "{}: the density-matrix solver needs about {} for Hilbert-space dimension d = {} ({} sites, mode levels {:?}), \
          more than [solver] memory_share = {} of this machine's {} of memory. Reduce the Fock truncation (`levels`) \
-         or the number of sites, or raise `memory_share` if the machine is otherwise idle; networks this large are \
-         meant for the quantum-trajectory solver (planned).",
+         or the number of sites{raise}; networks this large are meant for the quantum-trajectory solver (planned).",
         plan.path.display(),
         bytes_label(est.needed),
         est.dim,
@@ -281,6 +287,23 @@ fn record(
     }
 }
 
+/// Warnings for initial mode states that lose more than the warning threshold to truncation.
+pub fn initial_truncation_warnings(plan: &RunPlan) -> Vec<String> {
+    let mut w = Vec::new();
+    for (m, st) in plan.initial.modes.iter().enumerate() {
+        let Some(md) = plan.network.modes.get(m) else { continue };
+        let lost = st.truncated_weight(md.levels);
+        if lost > plan.observe.truncation_warning {
+            w.push(format!(
+                "mode `{}`: the initial state {st:?} has weight {lost:.3e} beyond the {} kept Fock levels; \
+                 it was truncated and renormalised, raise `levels`",
+                plan.mode_names[m], md.levels
+            ));
+        }
+    }
+    w
+}
+
 /// Run `plan`. `progress(done, total)` is called after every sample.
 ///
 /// # Errors
@@ -290,13 +313,17 @@ pub fn run(
     plan: &RunPlan,
     mut progress: impl FnMut(usize, usize) + Send,
 ) -> Result<RunResult, AppError> {
+    let space = plan
+        .network
+        .space()
+        .map_err(|e| AppError::Input(format!("{}: {e}", plan.path.display())))?;
+    let est = memory_estimate(plan, space.dim());
+    memory_guard(plan, &est)?;
     let me = plan
         .network
         .build()
         .map_err(|e| AppError::Input(format!("{}: {e}", plan.path.display())))?;
     let dim = me.space.dim();
-    let est = memory_estimate(plan, dim);
-    memory_guard(plan, &est)?;
     let rho0 = plan
         .initial
         .density(&me.space)
@@ -330,7 +357,7 @@ pub fn run(
             ))
         })?;
     let wall_seconds = start.elapsed().as_secs_f64();
-    let mut warnings = Vec::new();
+    let mut warnings = initial_truncation_warnings(plan);
     if let Some(top) = series.iter().find(|s| s.name == "top_level_population") {
         for (m, name) in plan.mode_names.iter().enumerate() {
             let max = top.row(m).iter().copied().fold(0.0, f64::max);

@@ -198,6 +198,42 @@ impl Network {
         })
     }
 
+    /// Check parameters, shapes and the dimension without building any operator (cheap even when
+    /// the Hilbert space is huge).
+    ///
+    /// # Errors
+    /// As [`Network::build`].
+    pub fn validate(&self) -> Result<(), ModelError> {
+        self.check()?;
+        self.space().map(|_| ())
+    }
+
+    /// The dissipation channels [`Network::build`] would create, in the same order, without
+    /// building operators.
+    pub fn channels(&self) -> Vec<Channel> {
+        let mut v = Vec::new();
+        for (i, s) in self.sites.iter().enumerate() {
+            if s.decay > 0.0 {
+                v.push(Channel::SiteDecay(i));
+            }
+            if s.dephasing > 0.0 {
+                v.push(Channel::SiteDephasing(i));
+            }
+            if s.pump > 0.0 {
+                v.push(Channel::SitePump(i));
+            }
+        }
+        for (m, p) in self.modes.iter().enumerate() {
+            if p.loss * (1.0 + p.thermal) > 0.0 {
+                v.push(Channel::ModeLoss(m));
+            }
+            if p.loss * p.thermal > 0.0 {
+                v.push(Channel::ModeGain(m));
+            }
+        }
+        v
+    }
+
     fn check(&self) -> Result<(), ModelError> {
         let n = self.sites.len();
         let m = self.modes.len();
@@ -568,6 +604,13 @@ mod tests {
         net.coupling = vec![vec![0.1], vec![0.1]];
         net.zz = vec![vec![0.0, 1.0], vec![2.0, 0.0]];
         assert!(net.build().is_err());
+    }
+
+    #[test]
+    fn channels_match_built_jumps() {
+        let me = one_site_one_mode().build().unwrap();
+        let built: Vec<Channel> = me.jumps.iter().map(|j| j.channel).collect();
+        assert_eq!(one_site_one_mode().channels(), built);
     }
 
     #[test]

@@ -54,6 +54,28 @@ pub struct ProductState {
 }
 
 impl ModeInit {
+    /// Probability that the untruncated state has n ≥ `levels` photons (the weight dropped before
+    /// renormalising): Poisson e^{−|α|²}|α|^{2n}/n! for a coherent state, (n̄/(1+n̄))^levels for a
+    /// thermal one, 0 for vacuum and Fock states.
+    pub fn truncated_weight(&self, levels: usize) -> f64 {
+        match *self {
+            ModeInit::Vacuum | ModeInit::Fock(_) => 0.0,
+            ModeInit::Thermal(nbar) => (nbar / (1.0 + nbar)).powi(levels as i32),
+            ModeInit::Coherent(alpha) => {
+                let x = alpha.norm_sqr();
+                let mut p = (-x).exp();
+                let mut kept = 0.0;
+                for n in 0..levels {
+                    if n > 0 {
+                        p *= x / n as f64;
+                    }
+                    kept += p;
+                }
+                (1.0 - kept).max(0.0)
+            }
+        }
+    }
+
     /// Local density matrix (row-major, levels × levels).
     ///
     /// # Errors
@@ -264,6 +286,16 @@ mod tests {
         }
         let tr: f64 = (0..d).map(|r| rho[r * d + r].re).sum();
         assert!((tr - 1.0).abs() < 1e-14);
+    }
+
+    #[test]
+    fn truncated_weight_of_coherent_and_thermal_states() {
+        // Poisson tail: |α|² = 1, levels 2 → 1 − e⁻¹(1 + 1) (textbook Poisson statistics)
+        let w = ModeInit::Coherent(C64::new(1.0, 0.0)).truncated_weight(2);
+        assert!((w - (1.0 - 2.0 * (-1.0f64).exp())).abs() < 1e-15);
+        // geometric tail of the Bose–Einstein distribution: qᴸ
+        assert!((ModeInit::Thermal(1.0).truncated_weight(3) - 0.125).abs() < 1e-15);
+        assert_eq!(ModeInit::Fock(2).truncated_weight(3), 0.0);
     }
 
     #[test]

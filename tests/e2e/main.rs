@@ -1,0 +1,14 @@
+//! End-to-end tests of the `cavern` command-line tool: every test runs the real binary in a fresh
+//! temporary directory and looks only at what a user sees — exit code, stdout, stderr and the
+//! files left behind (HDF5 results are read back with h5py through `python3`).
+//!
+//! - `config_errors` — the bad-input corpus in `tests/bad-input/` (one mistake per file, the
+//!   expected message stated in the file's leading comments).
+//! - `check` — what `cavern check` reports (dimension, memory, units, cooperativity).
+//! - `run_output` — `cavern run`: the HDF5 layout, the summary table, quiet mode, determinism,
+//!   the truncation warning and output-path errors.
+
+mod check;
+mod config_errors;
+mod run_output;
+mod util;
