@@ -7,8 +7,10 @@
 //! - `check` — what `cavern check` reports (dimension, memory, units, cooperativity).
 //! - `run_output` — `cavern run`: the HDF5 layout, the summary table, quiet mode, determinism,
 //!   the truncation warning and output-path errors.
+//! - `scipy_reference` — a 2-spin + 1-mode run against an independent SciPy propagation.
 
 mod check;
 mod config_errors;
 mod run_output;
+mod scipy_reference;
 mod util;

@@ -289,8 +289,11 @@ fn run_and_compare(sb: &Sandbox, config: &Path, e: &Expect) -> FileSummary {
     let mut stored_rows = file.rows.clone();
     stored_rows.sort_by_key(key);
     assert!(
-        header.contains(&if e.time_unit.starts_with("1 ") { "t = 0 ".to_string() } else { format!("t = 0 {}", e.time_unit) })
-            && header.contains("min")
+        header.contains(&if e.time_unit.starts_with("1 ") {
+            "t = 0 ".to_string()
+        } else {
+            format!("t = 0 {}", e.time_unit)
+        }) && header.contains("min")
             && header.contains("max"),
         "table header `{header}`"
     );
