@@ -83,7 +83,10 @@ fn run_cmd(
     }
     let out = out.unwrap_or_else(|| default_output(file));
     if out.is_dir() {
-        return Err(AppError::Input(format!("the output path {} is a directory; give a file name", out.display())));
+        return Err(AppError::Input(format!(
+            "the output path {} is a directory; give a file name",
+            out.display()
+        )));
     }
     if let Some(parent) = out.parent().filter(|p| !p.as_os_str().is_empty()) {
         if !parent.is_dir() {

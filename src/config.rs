@@ -487,7 +487,11 @@ impl Resolver {
 
     fn err(&mut self, key: &str, message: impl Into<String>) {
         let message = message.into();
-        if self.errors.iter().any(|e| e.key == key && e.message == message) {
+        if self
+            .errors
+            .iter()
+            .any(|e| e.key == key && e.message == message)
+        {
             return; // a default shared by several sites is reported once
         }
         let line = self.locate(key);
@@ -1065,11 +1069,14 @@ impl Resolver {
         };
         let mut times = Vec::new();
         let mut values = Vec::new();
+        let mut header_seen = false;
         for (k, line) in text.lines().enumerate() {
             let l = line.trim();
             if l.is_empty() || l.starts_with('#') {
                 continue;
             }
+            let first_row = !header_seen && times.is_empty();
+            header_seen = true;
             let cols: Vec<&str> = l.split(',').map(str::trim).collect();
             let parsed =
                 (cols.len() == 2).then(|| (cols[0].parse::<f64>(), cols[1].parse::<f64>()));
@@ -1078,7 +1085,7 @@ impl Resolver {
                     times.push(t);
                     values.push(v);
                 }
-                _ if times.is_empty() && k == 0 && cols.len() == 2 => {} // a header line
+                _ if first_row && cols.len() == 2 => {} // a header line
                 _ => {
                     self.err(
                         &format!("{key}.file"),

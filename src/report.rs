@@ -175,7 +175,11 @@ pub fn check_text(plan: &RunPlan, dim: usize, mem: &MemoryEstimate) -> String {
         s,
         "  jump operators ({}): {}",
         ch.len(),
-        if ch.is_empty() { "none".into() } else { ch.join(", ") }
+        if ch.is_empty() {
+            "none".into()
+        } else {
+            ch.join(", ")
+        }
     );
     // derived figures
     let mut derived = Vec::new();
@@ -253,7 +257,11 @@ pub fn summary_table(plan: &RunPlan, res: &RunResult) -> String {
     let t0 = res.times.first().copied().unwrap_or(0.0);
     let t1 = res.times.last().copied().unwrap_or(0.0);
     let mut s = String::new();
-    let tu = if plan.units.seconds_per_time_unit().is_some() { format!(" {tu}") } else { String::new() };
+    let tu = if plan.units.seconds_per_time_unit().is_some() {
+        format!(" {tu}")
+    } else {
+        String::new()
+    };
     let h0 = format!("t = {}{tu}", sig(t0));
     let h1 = format!("t = {}{tu}", sig(t1));
     let _ = writeln!(

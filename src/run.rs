@@ -291,7 +291,9 @@ fn record(
 pub fn initial_truncation_warnings(plan: &RunPlan) -> Vec<String> {
     let mut w = Vec::new();
     for (m, st) in plan.initial.modes.iter().enumerate() {
-        let Some(md) = plan.network.modes.get(m) else { continue };
+        let Some(md) = plan.network.modes.get(m) else {
+            continue;
+        };
         let lost = st.truncated_weight(md.levels);
         if lost > plan.observe.truncation_warning {
             w.push(format!(

@@ -133,3 +133,25 @@ fn check_of_a_missing_file_is_a_clear_input_error() {
     );
     assert!(sb.entries().is_empty());
 }
+
+/// Every shipped example (`configs/`) and the demo (`demo-data/`) must stay valid as the schema
+/// evolves.
+#[test]
+fn shipped_examples_pass_check() {
+    let sb = Sandbox::new();
+    let mut n = 0;
+    for dir in ["configs", "demo-data"] {
+        for entry in std::fs::read_dir(repo().join(dir)).expect("list examples") {
+            let path = entry.expect("entry").path();
+            if path.extension().is_some_and(|e| e == "toml") {
+                let out = sb.cavern(["check".as_ref(), path.as_os_str()]);
+                assert_eq!(out.code, Some(0), "{}", out.describe());
+                n += 1;
+            }
+        }
+    }
+    assert!(
+        n >= 4,
+        "expected the demo and at least three examples, found {n}"
+    );
+}
