@@ -329,6 +329,10 @@ impl Dopri5 {
             h = remaining;
         }
         if h <= 10.0 * f64::EPSILON * self.t.abs().max(remaining) {
+            if self.bad_values > 0 {
+                // the step collapsed because the right-hand side keeps returning NaN/Inf
+                return Err(EvolveError::NonFinite { t: self.t });
+            }
             return Err(EvolveError::StepUnderflow { t: self.t, h });
         }
         let t = self.t;
@@ -508,4 +512,81 @@ where
         }
     }
     Ok(ode.stats())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// y' = f(t, y) given by a closure, on one complex unknown.
+    struct Scalar<F: FnMut(f64, C64) -> C64>(F);
+
+    impl<F: FnMut(f64, C64) -> C64> Rhs for Scalar<F> {
+        fn len(&self) -> usize {
+            1
+        }
+        fn eval(&mut self, t: f64, y: &[C64], dy: &mut [C64]) {
+            dy[0] = (self.0)(t, y[0]);
+        }
+    }
+
+    fn run<F: FnMut(f64, C64) -> C64>(f: F, t_end: f64) -> Result<Stats, EvolveError> {
+        let mut rhs = Scalar(f);
+        let mut scratch = [C64::new(0.0, 0.0)];
+        let opts = DopriOptions {
+            par: Par::Seq,
+            ..Default::default()
+        };
+        integrate(
+            &mut rhs,
+            0.0,
+            &[C64::new(1.0, 0.0)],
+            &[0.0, t_end],
+            opts,
+            &mut scratch,
+            |_, _, _, _| {},
+        )
+    }
+
+    #[test]
+    fn nan_is_an_error_naming_the_time_reached() {
+        // the right-hand side turns NaN for t > 0.5: the integrator must stop near there
+        let err = run(
+            |t, y| if t > 0.5 { C64::new(f64::NAN, 0.0) } else { -y },
+            2.0,
+        )
+        .unwrap_err();
+        match err {
+            EvolveError::NonFinite { t } => assert!((0.0..=0.5).contains(&t) && t > 0.3, "t = {t}"),
+            other => panic!("expected NonFinite, got {other:?}"),
+        }
+    }
+
+    #[test]
+    fn blow_up_is_a_step_underflow_near_the_singularity() {
+        // y' = y², y(0) = 1 has the solution 1/(1 − t), singular at t = 1 (textbook finite-time
+        // blow-up, e.g. Hairer–Nørsett–Wanner §I.7): the step size must collapse just before t = 1
+        let err = run(|_, y| y * y, 2.0).unwrap_err();
+        let t = match err {
+            EvolveError::StepUnderflow { t, .. } | EvolveError::NonFinite { t } => t,
+            other => panic!("expected a step-size underflow, got {other:?}"),
+        };
+        // an explicit method may accept a step that just straddles the pole before the values
+        // overflow, so the time reached is near 1 rather than strictly below it
+        assert!((t - 1.0).abs() < 1e-3, "t = {t}");
+        assert!(err.to_string().contains("t = "), "{err}");
+    }
+
+    #[test]
+    fn invalid_options_are_refused() {
+        let mut rhs = Scalar(|_, y| -y);
+        let opts = DopriOptions {
+            rtol: 0.0,
+            ..Default::default()
+        };
+        assert!(matches!(
+            Dopri5::new(&mut rhs, 0.0, &[C64::new(1.0, 0.0)], opts),
+            Err(EvolveError::Options(_))
+        ));
+    }
 }
