@@ -65,10 +65,10 @@ pub enum EvolveError {
 }
 
 /// Bytes the density-matrix evolution allocates for Hilbert-space dimension `d`: the integrator's
-/// nine d×d vectors, the right-hand side's workspace, the initial state and one interpolation
-/// buffer (twelve d×d complex matrices in all).
+/// nine d×d vectors, the right-hand side's workspace, the initial state in both layouts, one
+/// interpolation buffer and one row-major sample (fourteen d×d complex matrices in all).
 pub fn density_workspace_bytes(d: usize) -> u128 {
-    12u128 * (d as u128) * (d as u128) * std::mem::size_of::<C64>() as u128
+    14u128 * (d as u128) * (d as u128) * std::mem::size_of::<C64>() as u128
 }
 
 /// Evolve ρ from `rho0` at t₀ = `times[0]` (or 0 if `times` is empty),
@@ -81,13 +81,29 @@ pub fn evolve_density<F>(
     rho0: &[C64],
     times: &[f64],
     opts: DopriOptions,
-    observe: F,
+    mut observe: F,
 ) -> Result<Stats, EvolveError>
 where
     F: FnMut(usize, f64, &[C64], &Stats),
 {
     let mut rhs = LindbladRhs::new(me, opts.par)?;
     let t0 = times.first().copied().unwrap_or(0.0);
+    // the kernel works on a panel-major copy of ρ; samples are handed out row-major
+    let mut y0 = vec![C64::new(0.0, 0.0); rho0.len()];
+    rhs.to_panels(rho0, &mut y0);
     let mut scratch = vec![C64::new(0.0, 0.0); rho0.len()];
-    integrate(&mut rhs, t0, rho0, times, opts, &mut scratch, observe)
+    let mut sample = vec![C64::new(0.0, 0.0); rho0.len()];
+    let d = me.space.dim();
+    integrate(
+        &mut rhs,
+        t0,
+        &y0,
+        times,
+        opts,
+        &mut scratch,
+        |k, t, y, st| {
+            lindblad::from_panels(d, y, &mut sample);
+            observe(k, t, &sample, st)
+        },
+    )
 }
