@@ -499,7 +499,7 @@ impl Resolver {
             file: self.path.clone(),
             line,
             key: key.into(),
-            message: message.into(),
+            message,
         });
     }
 

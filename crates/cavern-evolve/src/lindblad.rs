@@ -11,7 +11,7 @@
 //!
 //! Organisation: the operators of a tensor-product model have few distinct *shifts*
 //! (column − row), so A is stored by diagonals — for each shift s a vector D_s with
-//! (Aρ)ᵣ· += D_s[r] ρ_{r+s,·}. The kernel's state is ρ in a *panel-major* layout (see
+//! (Aρ)ᵣ· += D_s(r) ρ_{r+s,·}. The kernel's state is ρ in a *panel-major* layout (see
 //! [`LindbladRhs::to_panels`]): panel p holds columns p·w … p·w + w − 1 of all rows, so the
 //! w-long segments of consecutive rows are contiguous and every term reads a forward stream.
 //! X is built panel by panel and, inside a panel, row by row: the segment being formed stays in
@@ -95,7 +95,7 @@ const MAX_PANEL: usize = 128;
 /// a divisor means no padding.
 fn panel_width(d: usize) -> usize {
     let cap = MAX_PANEL.min((d / 2).max(1));
-    (1..=cap).rev().find(|w| d % w == 0).unwrap_or(1)
+    (1..=cap).rev().find(|w| d.is_multiple_of(*w)).unwrap_or(1)
 }
 
 /// Copy a row-major d×d matrix into the panel-major layout of [`LindbladRhs`]: with
@@ -130,7 +130,7 @@ pub fn from_panels(d: usize, panels: &[C64], row_major: &mut [C64]) {
 
 /// Split the operator `op` (entries already including any −i) into its main diagonal and its
 /// off-diagonals by shift.
-fn by_diagonals(op: &SparseOp, group: usize, main: &mut Vec<C64>, out: &mut Vec<Diagonal>) {
+fn by_diagonals(op: &SparseOp, group: usize, main: &mut [C64], out: &mut Vec<Diagonal>) {
     let d = op.dim();
     let mut by_shift: std::collections::BTreeMap<isize, Vec<C64>> = Default::default();
     for (r, c, v) in op.triplets() {
@@ -648,7 +648,10 @@ mod tests {
     fn panel_widths_divide_the_dimension() {
         for d in [1, 2, 3, 7, 40, 96, 384, 1536, 6144, 100_000] {
             let w = panel_width(d);
-            assert!(w >= 1 && w <= MAX_PANEL && d % w == 0, "d = {d}: w = {w}");
+            assert!(
+                (1..=MAX_PANEL).contains(&w) && d.is_multiple_of(w),
+                "d = {d}: w = {w}"
+            );
         }
         assert_eq!(panel_width(1536), 128);
         assert_eq!(panel_width(96), 48);

@@ -34,7 +34,7 @@ pub enum Envelope {
         /// Value after the step.
         to: f64,
     },
-    /// Piecewise-linear interpolation through (times[k], values[k]); held at the first/last value
+    /// Piecewise-linear interpolation through (`times[k]`, `values[k]`); held at the first/last value
     /// outside the table. Times strictly increasing.
     Table {
         /// Knot times, strictly increasing.

@@ -16,10 +16,13 @@
 //! assert_eq!(me.jumps.len(), 2); // cavity loss and spin decay
 //! ```
 //!
-//! Conventions (see each item): σᶻ = diag(−1, +1) in the (g, e) basis, σ⁻ = |g⟩⟨e|;
-//! H = Σₘ Δcₘ a†ₘaₘ + Σᵢ (Δaᵢ/2)σᶻᵢ + Σᵢₘ gᵢₘ(aₘσ⁺ᵢ + a†ₘσ⁻ᵢ) [or gᵢₘ(aₘ + a†ₘ)σˣᵢ]
-//! + Σₘ εₘ(aₘ + a†ₘ) + Σᵢ (Ωᵢ/2)σˣᵢ + Σᵢ<ⱼ [Jᶻᵢⱼ σᶻᵢσᶻⱼ + Jˣᵢⱼ(σ⁺ᵢσ⁻ⱼ + σ⁻ᵢσ⁺ⱼ)];
-//! jump operators √(κ(1+n_th)) a, √(κ n_th) a†, √γ σ⁻, √(γφ/2) σᶻ, √P σ⁺.
+//! Conventions (see each item): σᶻ = diag(−1, +1) in the (g, e) basis, σ⁻ = |g⟩⟨e|, and
+//!
+//! ```text
+//! H = Σₘ Δcₘ a†ₘaₘ + Σᵢ (Δaᵢ/2)σᶻᵢ + Σᵢₘ gᵢₘ(aₘσ⁺ᵢ + a†ₘσ⁻ᵢ)   [or gᵢₘ(aₘ + a†ₘ)σˣᵢ]
+//!   + Σₘ εₘ(aₘ + a†ₘ) + Σᵢ (Ωᵢ/2)σˣᵢ + Σᵢ<ⱼ [Jᶻᵢⱼ σᶻᵢσᶻⱼ + Jˣᵢⱼ(σ⁺ᵢσ⁻ⱼ + σ⁻ᵢσ⁺ⱼ)]
+//! jump operators √(κ(1+n_th)) a, √(κ n_th) a†, √γ σ⁻, √(γφ/2) σᶻ, √P σ⁺
+//! ```
 
 pub mod envelope;
 pub mod network;

@@ -140,8 +140,8 @@ pub struct DrivenTerm {
     pub op: SparseOp,
 }
 
-/// The Lindblad master equation dρ/dt = −i[H(t), ρ] + Σ D[L]ρ with
-/// H(t) = H₀ + Σₖ fₖ(t) Hₖ and D[L]ρ = LρL† − ½{L†L, ρ}.
+/// The Lindblad master equation dρ/dt = −i[H(t), ρ] + Σ 𝒟\[L\]ρ with
+/// H(t) = H₀ + Σₖ fₖ(t) Hₖ and 𝒟\[L\]ρ = LρL† − ½{L†L, ρ}.
 #[derive(Clone, Debug, PartialEq)]
 pub struct MasterEquation {
     /// The Hilbert space.
