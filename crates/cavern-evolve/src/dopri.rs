@@ -292,6 +292,17 @@ impl Dopri5 {
         self.last_rejected = false;
     }
 
+    /// Continue from a new point (t, y), e.g. after a quantum jump: copies `y`, re-evaluates f and
+    /// keeps the current step size. Dense output is invalid until the next accepted step.
+    ///
+    /// # Panics
+    /// If `y` has the wrong length.
+    pub fn reset<R: Rhs>(&mut self, rhs: &mut R, t: f64, y: &[C64]) {
+        self.y.copy_from_slice(y);
+        self.t = t;
+        self.restart(rhs);
+    }
+
     /// Step size of the next attempt.
     pub fn h(&self) -> f64 {
         self.h

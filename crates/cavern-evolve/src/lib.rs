@@ -3,6 +3,7 @@
 //! - [`dopri`]: adaptive Dormand–Prince 5(4) with dense output on complex vectors.
 //! - [`lindblad`]: the matrix-free right-hand side on a dense density matrix.
 //! - [`evolve_density`]: both together, calling back at the requested sample times.
+//! - [`trajectory`]: quantum trajectories (Monte Carlo wave functions) of the same model.
 //!
 //! ```
 //! use cavern_model::{Network, SiteParams, ProductState, SpinInit};
@@ -22,10 +23,12 @@
 pub mod dopri;
 pub mod lindblad;
 pub mod par;
+pub mod trajectory;
 
 pub use dopri::{integrate, Dopri5, DopriOptions, Rhs, Stats, StepOutcome};
 pub use lindblad::LindbladRhs;
 pub use par::Par;
+pub use trajectory::{run_trajectories, JumpRecord, TrajectoryOptions, TrajectoryResult};
 
 use cavern_model::MasterEquation;
 use num_complex::Complex64 as C64;

@@ -138,6 +138,78 @@ pub fn pattern_overlap(sz: &[f64], pattern: &[i8]) -> f64 {
         / n
 }
 
+/// The same observables for a normalised state vector |ψ⟩ (quantum trajectories).
+pub mod state {
+    use cavern_model::op::local;
+    use cavern_model::{Space, C64};
+
+    /// ⟨ψ|A|ψ⟩ for a local operator A (row-major n×n) on factor `k`.
+    pub fn expect_local(space: &Space, psi: &[C64], k: usize, a: &[C64]) -> C64 {
+        let n = space.factors()[k].dim();
+        let s = space.stride(k);
+        let mut acc = C64::new(0.0, 0.0);
+        for r in 0..space.dim() {
+            let p = space.digit(r, k);
+            for q in 0..n {
+                let v = a[p * n + q];
+                if v != C64::new(0.0, 0.0) {
+                    acc += psi[r].conj() * v * psi[r + q * s - p * s];
+                }
+            }
+        }
+        acc
+    }
+
+    /// ⟨σᶻᵢ⟩.
+    pub fn spin_z(space: &Space, psi: &[C64], i: usize) -> f64 {
+        psi.iter()
+            .enumerate()
+            .map(|(r, z)| space.spin(r, i) * z.norm_sqr())
+            .sum()
+    }
+
+    /// ⟨σˣᵢ⟩.
+    pub fn spin_x(space: &Space, psi: &[C64], i: usize) -> f64 {
+        expect_local(space, psi, space.site_factor(i), &local::pauli_x()).re
+    }
+
+    /// ⟨σʸᵢ⟩.
+    pub fn spin_y(space: &Space, psi: &[C64], i: usize) -> f64 {
+        expect_local(space, psi, space.site_factor(i), &local::pauli_y()).re
+    }
+
+    /// ⟨a†ₘaₘ⟩.
+    pub fn photon_number(space: &Space, psi: &[C64], m: usize) -> f64 {
+        let k = space.mode_factor(m);
+        psi.iter()
+            .enumerate()
+            .map(|(r, z)| space.digit(r, k) as f64 * z.norm_sqr())
+            .sum()
+    }
+
+    /// ⟨aₘ⟩.
+    pub fn field(space: &Space, psi: &[C64], m: usize) -> C64 {
+        let levels = space.mode_levels(m);
+        expect_local(
+            space,
+            psi,
+            space.mode_factor(m),
+            &local::annihilation(levels),
+        )
+    }
+
+    /// Population of mode m's highest kept Fock level.
+    pub fn top_level_population(space: &Space, psi: &[C64], m: usize) -> f64 {
+        let k = space.mode_factor(m);
+        let top = space.mode_levels(m) - 1;
+        psi.iter()
+            .enumerate()
+            .filter(|(r, _)| space.digit(*r, k) == top)
+            .map(|(_, z)| z.norm_sqr())
+            .sum()
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -169,5 +241,14 @@ mod tests {
         let p = fock_distribution(&space, &rho, 0);
         assert!((p.iter().sum::<f64>() - 1.0).abs() < 1e-12);
         assert!(top_level_population(&space, &rho, 0) < 1e-18);
+        // the state-vector versions agree with the density-matrix ones on |ψ⟩⟨ψ|
+        let psi = st.vector(&space).unwrap();
+        assert!((state::spin_z(&space, &psi, 0) - spin_z(&space, &rho, 0)).abs() < 1e-14);
+        assert!((state::spin_x(&space, &psi, 0) - spin_x(&space, &rho, 0)).abs() < 1e-14);
+        assert!((state::spin_y(&space, &psi, 0) - spin_y(&space, &rho, 0)).abs() < 1e-14);
+        assert!(
+            (state::photon_number(&space, &psi, 0) - photon_number(&space, &rho, 0)).abs() < 1e-12
+        );
+        assert!((state::field(&space, &psi, 0) - field(&space, &rho, 0)).norm() < 1e-14);
     }
 }
