@@ -396,6 +396,7 @@ impl LindbladRhs {
         let at = |r: usize| &rp[r * w..(r + 1) * w];
         let mut fac = [0.0f64; MAX_PANEL];
         let fac = &mut fac[..w];
+        let mut fac_row: Option<usize> = None;
         for (r, xr) in panel.chunks_mut(w).enumerate() {
             // main diagonal of A and diagonal jumps, element-wise on row r of ρ
             let mut a_rr = C64::new(0.0, 0.0);
@@ -410,13 +411,19 @@ impl LindbladRhs {
                     *o = a_rr * s;
                 }
             } else {
-                // real diagonal jumps fold into one real factor per column: Σⱼ ½ vⱼ(r) vⱼ(c)
-                fac.fill(0.0);
-                for v in &self.diag_jumps {
-                    let vr = 0.5 * v[r];
-                    for (f, &vc) in fac.iter_mut().zip(&v[cols.clone()]) {
-                        *f += vr * vc;
+                // real diagonal jumps fold into one real factor per column: Σⱼ ½ vⱼ(r) vⱼ(c);
+                // consecutive rows often share every vⱼ(r) (they differ only in a mode digit),
+                // and then the factor is reused
+                let same = fac_row.is_some_and(|q| self.diag_jumps.iter().all(|v| v[q] == v[r]));
+                if !same {
+                    fac.fill(0.0);
+                    for v in &self.diag_jumps {
+                        let vr = 0.5 * v[r];
+                        for (f, &vc) in fac.iter_mut().zip(&v[cols.clone()]) {
+                            *f += vr * vc;
+                        }
                     }
+                    fac_row = Some(r);
                 }
                 for ((o, s), &f) in xr.iter_mut().zip(own).zip(fac.iter()) {
                     *o = (a_rr + f) * s;
