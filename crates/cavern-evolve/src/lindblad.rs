@@ -90,6 +90,12 @@ pub struct LindbladRhs {
 /// Largest panel width.
 const MAX_PANEL: usize = 128;
 
+/// Columns summed together in registers by the off-diagonal pass.
+const CHUNK: usize = 8;
+
+/// Off-diagonals per row handled by the register-blocked pass (the rest fall back to axpy).
+const MAX_ACTIVE: usize = 256;
+
 /// Panel width for dimension d: the largest divisor of d that is at most [`MAX_PANEL`] and at
 /// most d/2 (so that even small problems split into panels). Wide panels keep the loops long;
 /// a divisor means no padding.
@@ -397,6 +403,7 @@ impl LindbladRhs {
         let mut fac = [0.0f64; MAX_PANEL];
         let fac = &mut fac[..w];
         let mut fac_row: Option<usize> = None;
+        let mut active = [(0usize, 0.0f64); MAX_ACTIVE];
         for (r, xr) in panel.chunks_mut(w).enumerate() {
             // main diagonal of A and diagonal jumps, element-wise on row r of ρ
             let mut a_rr = C64::new(0.0, 0.0);
@@ -435,7 +442,10 @@ impl LindbladRhs {
                     *o += vr * vc.conj() * s;
                 }
             }
-            // off-diagonals of A: axpy from row r + shift of the same panel
+            // off-diagonals of A. Purely imaginary entries (the common case) are gathered into a
+            // short list and summed chunk by chunk in registers, so the row segment is loaded and
+            // stored once instead of once per diagonal; complex entries use a plain axpy.
+            let mut n_act = 0;
             for dg in &self.diagonals {
                 let c = self.coeff[dg.group];
                 match &dg.values {
@@ -444,11 +454,16 @@ impl LindbladRhs {
                         if h == 0.0 {
                             continue;
                         }
-                        let src = at((r as isize + dg.shift) as usize);
-                        // (−i h)·s = (h·s.im, −h·s.re)
-                        for (o, s) in xr.iter_mut().zip(src) {
-                            o.re += h * s.im;
-                            o.im -= h * s.re;
+                        let src_row = (r as isize + dg.shift) as usize;
+                        if n_act < MAX_ACTIVE {
+                            active[n_act] = (src_row * w, h);
+                            n_act += 1;
+                        } else {
+                            // (−i h)·s = (h·s.im, −h·s.re)
+                            for (o, s) in xr.iter_mut().zip(at(src_row)) {
+                                o.re += h * s.im;
+                                o.im -= h * s.re;
+                            }
                         }
                     }
                     DiagValues::Complex(v) => {
@@ -462,6 +477,30 @@ impl LindbladRhs {
                         }
                     }
                 }
+            }
+            let act = &active[..n_act];
+            for (ci, xc) in xr.chunks_mut(CHUNK).enumerate() {
+                let col = ci * CHUNK;
+                let mut acc = [C64::new(0.0, 0.0); CHUNK];
+                acc[..xc.len()].copy_from_slice(xc);
+                if xc.len() == CHUNK {
+                    for &(base, h) in act {
+                        let src = &rp[base + col..base + col + CHUNK];
+                        for (a, s) in acc.iter_mut().zip(src) {
+                            a.re += h * s.im;
+                            a.im -= h * s.re;
+                        }
+                    }
+                } else {
+                    for &(base, h) in act {
+                        let src = &rp[base + col..base + col + xc.len()];
+                        for (a, s) in acc.iter_mut().zip(src) {
+                            a.re += h * s.im;
+                            a.im -= h * s.re;
+                        }
+                    }
+                }
+                xc.copy_from_slice(&acc[..xc.len()]);
             }
             // off-diagonal jumps: (LρL†)ᵣc = v_r v_c ρ[r + s_r, c + s_c] along column segments
             for j in &self.shift_jumps {
