@@ -1,6 +1,6 @@
 //! Command-line interface.
 
-use crate::config::{self, RunPlan};
+use crate::config::{self, Method, RunPlan};
 use crate::{output, report, run, AppError};
 use clap::{Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
@@ -53,12 +53,17 @@ fn check(file: &Path) -> Result<(), AppError> {
         .density_check(&space)
         .map_err(|e| AppError::Input(format!("{}: initial state: {e}", file.display())))?;
     let dim = space.dim();
-    let mem = run::memory_estimate(&plan, dim);
-    print!("{}", report::check_text(&plan, dim, &mem));
-    for w in run::initial_truncation_warnings(&plan) {
+    let choice = run::choose(&plan, dim);
+    print!("{}", report::check_text(&plan, dim, &choice));
+    for w in plan
+        .warnings
+        .iter()
+        .cloned()
+        .chain(run::initial_truncation_warnings(&plan))
+    {
         eprintln!("warning: {w}");
     }
-    run::memory_guard(&plan, &mem)?;
+    run::memory_guard(&plan, &choice)?;
     println!("\nok: {} is valid", file.display());
     Ok(())
 }
@@ -96,18 +101,31 @@ fn run_cmd(
             )));
         }
     }
-    let bar =
-        ProgressBar::with_draw_target(Some(plan.times.len() as u64), ProgressDrawTarget::stderr());
+    // the solver choice is decided (and the memory guard passed) before anything is printed
+    let space = plan
+        .network
+        .space()
+        .map_err(|e| AppError::Input(format!("{}: {e}", file.display())))?;
+    let choice = run::choose(&plan, space.dim());
+    run::memory_guard(&plan, &choice)?;
+    let (total, unit) = match (choice.method, &plan.solver.trajectories) {
+        (Method::Trajectories, Some(tp)) => (tp.trajectories, "trajectories"),
+        _ => (plan.times.len(), "samples"),
+    };
+    if !quiet {
+        println!("method: {} ({})", choice.method.name(), choice.reason);
+    }
+    let bar = ProgressBar::with_draw_target(Some(total as u64), ProgressDrawTarget::stderr());
     if quiet || !std::io::stderr().is_terminal() {
         bar.set_draw_target(ProgressDrawTarget::hidden());
     }
     bar.set_style(
-        ProgressStyle::with_template(
-            "{bar:40} {pos}/{len} samples  {elapsed_precise} elapsed, eta {eta}",
-        )
+        ProgressStyle::with_template(&format!(
+            "{{bar:40}} {{pos}}/{{len}} {unit}  {{elapsed_precise}} elapsed, eta {{eta}}"
+        ))
         .unwrap_or_else(|_| ProgressStyle::default_bar()),
     );
-    let res = run::run(&plan, |done, _| bar.set_position(done as u64))?;
+    let res = run::run(&plan, &|done, _| bar.set_position(done as u64))?;
     bar.finish_and_clear();
     output::write(&plan, &res, &out)?;
     if !quiet {

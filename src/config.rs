@@ -7,7 +7,8 @@
 
 use crate::units::Units;
 use cavern_model::{
-    CouplingForm, Envelope, ModeInit, ModeParams, Network, ProductState, SiteParams, SpinInit, C64,
+    Channel, CouplingForm, Envelope, ModeInit, ModeParams, Network, ProductState, SiteParams,
+    SpinInit, C64,
 };
 use serde::Deserialize;
 use std::fmt;
@@ -104,6 +105,32 @@ struct RawSolver {
     max_step: Option<f64>,
     memory_share: Option<f64>,
     threads: Option<i64>,
+    trajectories: Option<i64>,
+    seed: Option<Value>,
+    keep: Option<i64>,
+    bin_width: Option<f64>,
+    correlate: Option<String>,
+    max_delay: Option<f64>,
+    correlate_after: Option<f64>,
+}
+
+impl RawSolver {
+    /// Names of the trajectory-only keys that are set.
+    fn trajectory_keys_set(&self) -> Vec<&'static str> {
+        [
+            ("trajectories", self.trajectories.is_some()),
+            ("seed", self.seed.is_some()),
+            ("keep", self.keep.is_some()),
+            ("bin_width", self.bin_width.is_some()),
+            ("correlate", self.correlate.is_some()),
+            ("max_delay", self.max_delay.is_some()),
+            ("correlate_after", self.correlate_after.is_some()),
+        ]
+        .into_iter()
+        .filter(|(_, set)| *set)
+        .map(|(k, _)| k)
+        .collect()
+    }
 }
 
 #[derive(Default, Clone)]
@@ -206,6 +233,8 @@ struct RawEnvelope {
 pub enum Method {
     /// Dense density matrix, adaptive Dormand–Prince 5(4).
     DensityMatrix,
+    /// Quantum trajectories (Monte Carlo wave functions), averaged.
+    Trajectories,
 }
 
 impl Method {
@@ -213,18 +242,61 @@ impl Method {
     pub fn name(self) -> &'static str {
         match self {
             Method::DensityMatrix => "density-matrix",
+            Method::Trajectories => "trajectories",
         }
     }
+}
+
+/// The solver the config asks for.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum MethodRequest {
+    /// Always the density matrix.
+    DensityMatrix,
+    /// Always trajectories.
+    Trajectories,
+    /// The density matrix when it fits in the memory guard, trajectories otherwise.
+    Auto,
+}
+
+impl MethodRequest {
+    /// Name used in config and output.
+    pub fn name(self) -> &'static str {
+        match self {
+            MethodRequest::DensityMatrix => "density-matrix",
+            MethodRequest::Trajectories => "trajectories",
+            MethodRequest::Auto => "auto",
+        }
+    }
+}
+
+/// Settings of the trajectory solver and of the click analysis (all times in the time unit).
+#[derive(Clone, Debug, PartialEq)]
+pub struct TrajectoryPlan {
+    /// Number of trajectories (≥ 1).
+    pub trajectories: usize,
+    /// Run seed (trajectory k uses stream k of ChaCha8 seeded with it).
+    pub seed: u64,
+    /// Keep the traces of the first `keep` trajectories.
+    pub keep: usize,
+    /// Width of the click-count, waiting-time and g² delay bins.
+    pub bin_width: f64,
+    /// The channel whose clicks are correlated (g², waiting times); `None` when the model has no
+    /// jump operators.
+    pub correlate: Option<Channel>,
+    /// Largest delay of g²(τ) (a whole number of bins).
+    pub max_delay: f64,
+    /// Start of the analysed (assumed stationary) window of g² and the waiting times.
+    pub correlate_after: f64,
 }
 
 /// Numerical settings of a run.
 #[derive(Clone, Debug, PartialEq)]
 pub struct SolverPlan {
-    /// Solver.
-    pub method: Method,
+    /// Solver asked for.
+    pub method: MethodRequest,
     /// Relative tolerance.
     pub rtol: f64,
-    /// Absolute tolerance (on density-matrix elements).
+    /// Absolute tolerance (on density-matrix elements, or state-vector amplitudes).
     pub atol: f64,
     /// Largest step, in the time unit (∞ if unset).
     pub max_step: f64,
@@ -232,6 +304,8 @@ pub struct SolverPlan {
     pub memory_share: f64,
     /// Worker threads; 0 = one per core.
     pub threads: usize,
+    /// Trajectory settings; present for `trajectories` and `auto`.
+    pub trajectories: Option<TrajectoryPlan>,
 }
 
 /// Which spin components to record.
@@ -279,6 +353,8 @@ pub struct RunPlan {
     pub solver: SolverPlan,
     /// Observables.
     pub observe: ObservePlan,
+    /// Non-fatal remarks about the config (shown by `check` and `run`, stored in the output).
+    pub warnings: Vec<String>,
 }
 
 /// Read and resolve a config file.
@@ -308,6 +384,7 @@ pub fn parse(path: &Path, text: &str) -> Result<RunPlan, ConfigErrors> {
         path: path.to_path_buf(),
         text: text.to_string(),
         errors: Vec::new(),
+        warnings: Vec::new(),
         doc: None,
     };
     r.doc = text.parse::<toml_edit::ImDocument<String>>().ok();
@@ -410,6 +487,7 @@ struct Resolver {
     path: PathBuf,
     text: String,
     errors: Vec<ConfigError>,
+    warnings: Vec<String>,
     doc: Option<toml_edit::ImDocument<String>>,
 }
 
@@ -674,6 +752,15 @@ impl Resolver {
 
         let initial = self.resolve_initial(raw.initial.as_ref(), n_sites, &network.modes);
         let observe = self.resolve_observe(&raw.observe, n_sites);
+        let mut solver = solver;
+        solver.trajectories = self.resolve_trajectories(
+            &raw.solver,
+            solver.method,
+            &times,
+            &network,
+            &initial,
+            units,
+        );
 
         // final structural check by the model itself (should pass after the checks above)
         if self.errors.is_empty() {
@@ -692,6 +779,7 @@ impl Resolver {
             times,
             solver,
             observe,
+            warnings: std::mem::take(&mut self.warnings),
         })
     }
 
@@ -750,13 +838,19 @@ impl Resolver {
 
     fn resolve_solver(&mut self, s: &RawSolver) -> SolverPlan {
         let method = match s.method.as_deref().unwrap_or("density-matrix") {
-            "density-matrix" => Method::DensityMatrix,
+            "density-matrix" => MethodRequest::DensityMatrix,
+            "trajectories" => MethodRequest::Trajectories,
+            "auto" => MethodRequest::Auto,
             other => {
+                let allowed = ["density-matrix", "trajectories", "auto"];
+                let hint = nearest(other, &allowed)
+                    .map(|s| format!(" (did you mean \"{s}\"?)"))
+                    .unwrap_or_default();
                 self.err(
                     "solver.method",
-                    format!("unknown method `{other}`; allowed: \"density-matrix\""),
+                    format!("unknown method \"{other}\"{hint}; allowed: \"density-matrix\", \"trajectories\", \"auto\""),
                 );
-                Method::DensityMatrix
+                MethodRequest::DensityMatrix
             }
         };
         let mut tol = |key: &str, v: Option<f64>, default: f64| {
@@ -808,6 +902,204 @@ impl Resolver {
                 0.5
             },
             threads: threads.clamp(0, 4096) as usize,
+            trajectories: None,
+        }
+    }
+
+    /// The trajectory settings: required for `trajectories` and `auto` (auto may pick them on a
+    /// smaller machine, so a config valid on one machine stays valid on another), checked but
+    /// unused (with a warning) for `density-matrix`.
+    fn resolve_trajectories(
+        &mut self,
+        s: &RawSolver,
+        method: MethodRequest,
+        times: &[f64],
+        network: &Network,
+        initial: &ProductState,
+        units: Units,
+    ) -> Option<TrajectoryPlan> {
+        let set = s.trajectory_keys_set();
+        if method == MethodRequest::DensityMatrix {
+            if set.is_empty() {
+                return None;
+            }
+            self.warnings.push(format!(
+                "{}: [solver] {} only apply to method = \"trajectories\" or \"auto\"; they are ignored with method = \"density-matrix\"",
+                self.path.display(),
+                set.iter().map(|k| format!("`{k}`")).collect::<Vec<_>>().join(", ")
+            ));
+        }
+        let tu = units.time_label();
+        let why = match method {
+            MethodRequest::Auto => " (method = \"auto\" runs trajectories when the density matrix does not fit in memory, so it needs them too)",
+            _ => "",
+        };
+        let n_before = self.errors.len();
+        let trajectories = match s.trajectories {
+            None => {
+                if method != MethodRequest::DensityMatrix {
+                    self.err(
+                        "solver",
+                        format!("the trajectory solver needs `trajectories`, the number of trajectories to average (an integer ≥ 1, e.g. trajectories = 1000){why}"),
+                    );
+                }
+                1
+            }
+            Some(n) if (1..=1_000_000_000).contains(&n) => n as usize,
+            Some(n) => {
+                self.err(
+                    "solver.trajectories",
+                    format!(
+                        "the number of trajectories must be an integer 1 … 1000000000 (got {n})"
+                    ),
+                );
+                1
+            }
+        };
+        let seed_help = "an explicit integer 0 … 9223372036854775807 (e.g. seed = 1), so that the run is reproducible: the same seed gives the same trajectories";
+        let seed = match &s.seed {
+            None => {
+                if method != MethodRequest::DensityMatrix {
+                    self.err(
+                        "solver",
+                        format!("the trajectory solver needs `seed`, {seed_help}; there is no random default{why}"),
+                    );
+                }
+                0
+            }
+            Some(Value::Integer(x)) if *x >= 0 => *x as u64,
+            Some(Value::String(text)) => {
+                self.err(
+                    "solver.seed",
+                    format!(
+                        "the seed must be {seed_help}; a string such as \"{text}\" is not accepted"
+                    ),
+                );
+                0
+            }
+            Some(other) => {
+                self.err(
+                    "solver.seed",
+                    format!("the seed must be {seed_help} (got {other})"),
+                );
+                0
+            }
+        };
+        let keep = match s.keep.unwrap_or(0) {
+            k if k >= 0 && (k as u64) <= trajectories as u64 => k as usize,
+            k => {
+                self.err(
+                    "solver.keep",
+                    format!("the number of kept trajectory traces must be an integer 0 … trajectories = {trajectories} (got {k})"),
+                );
+                0
+            }
+        };
+        let t_end = times.last().copied().unwrap_or(0.0);
+        if !(t_end > 0.0) {
+            if self.errors.len() == n_before
+                && !self.errors.iter().any(|e| e.key.starts_with("time"))
+            {
+                self.err("time", "the trajectory solver needs a run longer than t = 0 (click counts are binned over the run)");
+            }
+            return None;
+        }
+        // bin width: default the mean sample spacing
+        let default_bin = t_end / (times.len().max(2) - 1) as f64;
+        let bin_width = match s.bin_width {
+            None => default_bin,
+            Some(b) if b > 0.0 && b <= t_end => b,
+            Some(b) => {
+                self.err(
+                    "solver.bin_width",
+                    format!("the click-count bin width must be > 0 and at most the run length {t_end} (time unit: {tu}; got {b})"),
+                );
+                default_bin
+            }
+        };
+        let correlate_after = match s.correlate_after {
+            None => 0.0,
+            Some(a) if a >= 0.0 && a + bin_width <= t_end => a,
+            Some(a) => {
+                self.err(
+                    "solver.correlate_after",
+                    format!("the start of the analysed window must be ≥ 0 and leave at least one bin (bin_width = {bin_width}) before the end of the run at {t_end} (time unit: {tu}; got {a})"),
+                );
+                0.0
+            }
+        };
+        let window = t_end - correlate_after;
+        let max_delay = match s.max_delay {
+            None => (window / 10.0).max(bin_width).min(window),
+            Some(m) if m >= bin_width && m <= window => m,
+            Some(m) => {
+                self.err(
+                    "solver.max_delay",
+                    format!("the largest g² delay must be at least one bin (bin_width = {bin_width}) and at most the analysed window {window} = end {t_end} − correlate_after {correlate_after} (time unit: {tu}; got {m})"),
+                );
+                bin_width
+            }
+        };
+        let channels = network.channels();
+        let labels: Vec<String> = channels.iter().map(Channel::label).collect();
+        let correlate = match &s.correlate {
+            Some(name) => match labels.iter().position(|l| l == name) {
+                Some(k) => Some(channels[k]),
+                None => {
+                    let refs: Vec<&str> = labels.iter().map(String::as_str).collect();
+                    let hint = nearest(name, &refs)
+                        .map(|s| format!(" (did you mean \"{s}\"?)"))
+                        .unwrap_or_default();
+                    let allowed = if labels.is_empty() {
+                        "none: this model has no jump operators (no loss, decay, dephasing or pump)"
+                            .to_string()
+                    } else {
+                        labels
+                            .iter()
+                            .map(|l| format!("\"{l}\""))
+                            .collect::<Vec<_>>()
+                            .join(", ")
+                    };
+                    self.err(
+                        "solver.correlate",
+                        format!("unknown jump channel \"{name}\"{hint}; the channels of this model are {allowed}"),
+                    );
+                    None
+                }
+            },
+            None => channels
+                .iter()
+                .find(|c| **c == Channel::ModeLoss(0))
+                .or_else(|| channels.iter().find(|c| **c == Channel::SiteDecay(0)))
+                .or(channels.first())
+                .copied(),
+        };
+        if method == MethodRequest::Trajectories {
+            self.require_pure(initial, "method = \"trajectories\"");
+        }
+        if method == MethodRequest::DensityMatrix {
+            return None; // checked, but unused (the warning above says so)
+        }
+        Some(TrajectoryPlan {
+            trajectories,
+            seed,
+            keep,
+            bin_width,
+            correlate,
+            max_delay,
+            correlate_after,
+        })
+    }
+
+    /// Trajectories evolve state vectors: a mixed (thermal) initial mode state is refused.
+    fn require_pure(&mut self, initial: &ProductState, what: &str) {
+        for (m, st) in initial.modes.iter().enumerate() {
+            if let ModeInit::Thermal(nbar) = st {
+                self.err(
+                    &format!("initial.modes[{m}]"),
+                    format!("{what} evolves pure states (state vectors), but a thermal state (n̄ = {nbar}) is mixed; use method = \"density-matrix\", or a pure initial state (\"vacuum\", {{ fock = n }}, {{ coherent = α }})"),
+                );
+            }
         }
     }
 
@@ -1366,6 +1658,53 @@ strength = 0.25
         let e = parse_str(&bad).unwrap_err().to_string();
         assert!(e.contains("did you mean `loss`"), "{e}");
         assert!(e.contains("test.toml:16"), "{e}");
+    }
+
+    #[test]
+    fn trajectory_defaults() {
+        let cfg = MINIMAL.replace(
+            "[sites]",
+            "[solver]\nmethod = \"trajectories\"\ntrajectories = 50\nseed = 3\n[sites]",
+        );
+        let p = parse_str(&cfg).unwrap();
+        let t = p.solver.trajectories.unwrap();
+        assert_eq!((t.trajectories, t.seed, t.keep), (50, 3, 0));
+        // the sample spacing (1 µs / 10 intervals); max_delay a tenth of the run, at least a bin
+        assert!((t.bin_width - 0.1).abs() < 1e-15);
+        assert!((t.max_delay - 0.1).abs() < 1e-15);
+        assert_eq!(t.correlate_after, 0.0);
+        // the first mode's loss channel when there is one
+        assert_eq!(t.correlate, Some(Channel::ModeLoss(0)));
+        let no_mode = "[units]\nsystem = \"dimensionless\"\n[time]\nstop = 2.0\nsamples = 5\n\
+                       [solver]\nmethod = \"trajectories\"\ntrajectories = 1\nseed = 0\n\
+                       [sites]\ncount = 2\ndephasing = 0.1\ndecay = 1.0\n";
+        let t = parse_str(no_mode).unwrap().solver.trajectories.unwrap();
+        assert_eq!(t.correlate, Some(Channel::SiteDecay(0)));
+        // a bin wider than a tenth of the run sets the default delay range to one bin
+        assert!((t.max_delay - 0.5).abs() < 1e-15);
+    }
+
+    #[test]
+    fn trajectory_keys_with_the_density_matrix_warn_and_auto_needs_them() {
+        let cfg = MINIMAL.replace("[sites]", "[solver]\ntrajectories = 50\nseed = 3\n[sites]");
+        let p = parse_str(&cfg).unwrap();
+        assert!(p.solver.trajectories.is_none());
+        assert_eq!(p.warnings.len(), 1);
+        assert!(
+            p.warnings[0].contains("`trajectories`, `seed`"),
+            "{:?}",
+            p.warnings
+        );
+        let auto = MINIMAL.replace(
+            "[sites]",
+            "[solver]\nmethod = \"auto\"\ntrajectories = 5\n[sites]",
+        );
+        let e = parse_str(&auto).unwrap_err().to_string();
+        assert!(
+            e.contains("needs `seed`") && e.contains("method = \"auto\""),
+            "{e}"
+        );
+        assert!(e.contains("test.toml:8: key `solver`"), "{e}");
     }
 
     #[test]

@@ -2,6 +2,7 @@
 //! binary is a thin wrapper around [`cli::main`].
 
 pub mod cli;
+pub mod clicks;
 pub mod config;
 pub mod h5out;
 pub mod output;

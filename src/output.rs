@@ -7,11 +7,21 @@
 //! - `/observables/<name>` — `[rows, time]` (or `[time]` for single-row quantities) with
 //!   attributes `units`, `description` and `rows` (row labels).
 //! - `/model` — attributes: `dimension`, `n_sites`, `n_modes`, `mode_levels`, `mode_names`.
-//! - `/solver` — attributes: `method`, `rtol`, `atol`, `max_step`, `steps`, `rejected_steps`,
-//!   `rhs_evaluations`, `wall_seconds`, `threads`.
+//! - `/solver` — attributes: `method` (the method used), `method_requested`, `method_reason`,
+//!   `integrator`, `rtol`, `atol`, `max_step`, `steps`, `rejected_steps`, `rhs_evaluations`,
+//!   `wall_seconds`, `threads`; for trajectories also `trajectories`, `seed`, `keep`, `unravelling`.
 //! - `/input/config_toml` — the config text exactly as read.
+//!
+//! Trajectory runs only (see README.md, "Quantum trajectories"):
+//! - `/observables/<name>_stderr` — standard error of the mean of each observable.
+//! - `/jumps/{trajectory,time,channel}` — every jump; attribute `channel_labels`.
+//! - `/clicks/{bin_edges,counts,rate}` — counts per channel and time bin, and the rate.
+//! - `/clicks/{waiting_time_edges,waiting_time_density,g2_delay,g2,g2_pairs}` — the correlated
+//!   channel.
+//! - `/kept_trajectories/<name>` — `[trajectory, rows, time]` traces of the first `keep`.
 
-use crate::config::RunPlan;
+use crate::clicks::ClickAnalysis;
+use crate::config::{Method, RunPlan};
 use crate::h5out::{write_atomic, Data, Group};
 use crate::run::RunResult;
 use crate::AppError;
@@ -53,6 +63,8 @@ pub fn tree(plan: &RunPlan, res: &RunResult) -> Group {
     root.dataset("time", &[n_t], Data::F64(res.times.clone()))
         .attr("units", plan.units.time_label())
         .attr("description", "sample times");
+    let traj = res.trajectory.as_ref();
+    let n_traj = traj.map_or(0, |t| t.trajectories);
     let obs = root.group("observables");
     for s in &res.series {
         let shape: Vec<usize> = if s.rows.is_empty() {
@@ -60,11 +72,36 @@ pub fn tree(plan: &RunPlan, res: &RunResult) -> Group {
         } else {
             vec![s.rows.len(), n_t]
         };
+        let description = if traj.is_some() {
+            format!(
+                "{}; mean over {n_traj} quantum trajectories (standard error in {}_stderr)",
+                s.description, s.name
+            )
+        } else {
+            s.description.clone()
+        };
         let ds = obs.dataset(&s.name, &shape, Data::F64(s.data.clone()));
         ds.attr("units", s.units.as_str())
-            .attr("description", s.description.as_str());
+            .attr("description", description);
         if !s.rows.is_empty() {
             ds.attr("rows", s.rows.clone());
+        }
+        if traj.is_some() {
+            let ds = obs.dataset(
+                &format!("{}_stderr", s.name),
+                &shape,
+                Data::F64(s.stderr.clone()),
+            );
+            ds.attr("units", s.units.as_str()).attr(
+                "description",
+                format!(
+                    "standard error of the mean of {} over {n_traj} trajectories: sample standard deviation / sqrt({n_traj}) (NaN for a single trajectory)",
+                    s.name
+                ),
+            );
+            if !s.rows.is_empty() {
+                ds.attr("rows", s.rows.clone());
+            }
         }
     }
     let model = root.group("model");
@@ -83,7 +120,9 @@ pub fn tree(plan: &RunPlan, res: &RunResult) -> Group {
         .attr("mode_names", plan.mode_names.clone());
     let solver = root.group("solver");
     solver
-        .attr("method", plan.solver.method.name())
+        .attr("method", res.choice.method.name())
+        .attr("method_requested", res.choice.requested.name())
+        .attr("method_reason", res.choice.reason.as_str())
         .attr(
             "integrator",
             "Dormand-Prince 5(4), PI step control, 4th-order dense output",
@@ -96,9 +135,229 @@ pub fn tree(plan: &RunPlan, res: &RunResult) -> Group {
         .attr("rhs_evaluations", res.stats.rhs_evals as i64)
         .attr("wall_seconds", res.wall_seconds)
         .attr("threads", res.threads as i64);
+    if let (Some(t), Method::Trajectories) = (traj, res.choice.method) {
+        solver
+            .attr("trajectories", t.trajectories as i64)
+            .attr("seed", t.seed as i64)
+            .attr("keep", t.keep as i64)
+            .attr(
+                "unravelling",
+                "Monte Carlo wave functions (Dalibard, Castin & Molmer 1992): between jumps \
+                 d psi/dt = -i H_eff psi, H_eff = H - (i/2) sum_k L_k^dagger L_k; a jump when \
+                 |psi|^2 reaches a uniform random threshold, channel k with probability \
+                 proportional to |L_k psi|^2; trajectory k uses stream k of ChaCha8 seeded with \
+                 `seed`; steps, rejected_steps and rhs_evaluations are summed over trajectories",
+            );
+        write_trajectory_groups(&mut root, plan, res, t);
+    }
     root.group("input")
         .dataset("config_toml", &[], Data::Str(plan.source.clone()));
     root
+}
+
+/// `/jumps`, `/clicks` and `/kept_trajectories` of a trajectory run.
+fn write_trajectory_groups(
+    root: &mut Group,
+    plan: &RunPlan,
+    res: &RunResult,
+    t: &crate::run::TrajectoryOutput,
+) {
+    let u = plan.units;
+    let tu = u.time_label();
+    let per_tu = match u.seconds_per_time_unit() {
+        Some(_) => format!("1/{tu}"),
+        None => "1 (per time unit)".to_string(),
+    };
+    let n = t.trajectories;
+    let labels: Vec<String> = t.channels.iter().map(|c| c.label()).collect();
+    let n_j = t.jumps.len();
+    let jumps = root.group("jumps");
+    jumps
+        .attr("channel_labels", labels.clone())
+        .attr("n_trajectories", n as i64)
+        .attr(
+            "description",
+            "every quantum jump of every trajectory, ordered by trajectory then time; \
+             channel indexes channel_labels",
+        );
+    jumps
+        .dataset(
+            "trajectory",
+            &[n_j],
+            Data::I64(t.jumps.iter().map(|j| j.trajectory as i64).collect()),
+        )
+        .attr("units", "1")
+        .attr("description", format!("trajectory index 0 … {}", n - 1));
+    jumps
+        .dataset(
+            "time",
+            &[n_j],
+            Data::F64(t.jumps.iter().map(|j| j.time).collect()),
+        )
+        .attr("units", tu)
+        .attr(
+            "description",
+            "time of the jump (located on the integrator's dense output)",
+        );
+    jumps
+        .dataset(
+            "channel",
+            &[n_j],
+            Data::I64(t.jumps.iter().map(|j| j.channel as i64).collect()),
+        )
+        .attr("units", "1")
+        .attr(
+            "description",
+            "jump channel: index into the channel_labels attribute of /jumps",
+        );
+
+    let c: &ClickAnalysis = &t.clicks;
+    let n_bins = c.bin_edges.len() - 1;
+    let clicks = root.group("clicks");
+    clicks
+        .attr("bin_width", plan.solver.trajectories.as_ref().map_or(f64::NAN, |p| p.bin_width))
+        .attr("bin_width_units", tu)
+        .attr("channel_labels", labels.clone())
+        .attr("n_trajectories", n as i64)
+        .attr(
+            "description",
+            "photon counting: every jump of a channel is a click of an ideal detector on that channel",
+        );
+    clicks
+        .dataset("bin_edges", &[n_bins + 1], Data::F64(c.bin_edges.clone()))
+        .attr("units", tu)
+        .attr(
+            "description",
+            "edges of the count bins from 0 to the end of the run (the last bin may be shorter)",
+        );
+    clicks
+        .dataset(
+            "counts",
+            &[labels.len(), n_bins],
+            Data::I64(c.counts.clone()),
+        )
+        .attr("units", "clicks")
+        .attr("rows", labels.clone())
+        .attr(
+            "description",
+            format!("clicks (jumps) per channel and time bin, summed over all {n} trajectories"),
+        );
+    clicks
+        .dataset(
+            "rate",
+            &[labels.len(), n_bins],
+            Data::F64(c.rate.iter().map(|&r| u.flux(r)).collect()),
+        )
+        .attr("units", u.flux_label())
+        .attr("rows", labels.clone())
+        .attr(
+            "description",
+            format!(
+                "click rate per trajectory: counts / ({n} trajectories * bin width); for loss and \
+                 decay channels the emitted photon flux, compare output_flux"
+            ),
+        );
+    let Some(k) = &c.correlation else {
+        return;
+    };
+    let label = labels[k.channel].clone();
+    clicks
+        .attr("correlated_channel", label.as_str())
+        .attr("correlate_after", k.window_start)
+        .attr("window_end", k.window_end)
+        .attr(
+            "max_delay",
+            k.delay.len() as f64
+                * plan
+                    .solver
+                    .trajectories
+                    .as_ref()
+                    .map_or(f64::NAN, |p| p.bin_width),
+        )
+        .attr("mean_rate", u.flux(k.mean_rate))
+        .attr("mean_rate_units", u.flux_label())
+        .attr("n_clicks_analysed", k.clicks as i64)
+        .attr("n_intervals", k.intervals as i64);
+    let n_w = k.waiting_edges.len() - 1;
+    clicks
+        .dataset(
+            "waiting_time_edges",
+            &[n_w + 1],
+            Data::F64(k.waiting_edges.clone()),
+        )
+        .attr("units", tu)
+        .attr(
+            "description",
+            format!("edges of the waiting-time bins for channel {label}, from 0 to the length of the analysed window"),
+        );
+    clicks
+        .dataset(
+            "waiting_time_density",
+            &[n_w],
+            Data::F64(k.waiting_density.clone()),
+        )
+        .attr("units", per_tu.as_str())
+        .attr(
+            "description",
+            format!(
+                "normalised histogram (integral 1) of the intervals between successive {label} clicks \
+                 of the same trajectory, both inside the analysed window [correlate_after, end]; \
+                 NaN when there is no such interval"
+            ),
+        );
+    let n_d = k.delay.len();
+    clicks
+        .dataset("g2_delay", &[n_d], Data::F64(k.delay.clone()))
+        .attr("units", tu)
+        .attr(
+            "description",
+            "centre of each delay bin [k*bin_width, (k+1)*bin_width)",
+        );
+    clicks
+        .dataset("g2_pairs", &[n_d], Data::I64(k.pairs.clone()))
+        .attr("units", "pairs")
+        .attr(
+            "description",
+            format!("ordered pairs of {label} clicks of the same trajectory, both inside the analysed window, per delay bin"),
+        );
+    clicks
+        .dataset("g2", &[n_d], Data::F64(k.g2.clone()))
+        .attr("units", "1")
+        .attr(
+            "description",
+            format!(
+                "second-order intensity correlation of channel {label} from clicks, assuming the \
+                 process is stationary in the analysed window [correlate_after, end] of length T_w: \
+                 g2 = pairs / (N * bin_width * (T_w - delay) * R^2) with N = {n} trajectories and \
+                 R = clicks in the window / (N * T_w) the mean rate; 1 for Poissonian (coherent) \
+                 light, < 1 antibunched; relative statistical error about 1/sqrt(g2_pairs); NaN \
+                 without clicks"
+            ),
+        );
+
+    if t.keep > 0 {
+        let kept = root.group("kept_trajectories");
+        kept.attr("n_kept", t.keep as i64).attr(
+            "description",
+            "single-trajectory traces of the first `keep` trajectories, shape [trajectory, rows, time]; \
+             their jumps are the /jumps records with trajectory < n_kept",
+        );
+        for (name, data) in &t.kept {
+            let Some(s) = res.get(name) else { continue };
+            let ds = kept.dataset(
+                name,
+                &[t.keep, s.n_rows(), res.times.len()],
+                Data::F64(data.clone()),
+            );
+            ds.attr("units", s.units.as_str()).attr(
+                "description",
+                format!("{} of single trajectories", s.description),
+            );
+            if !s.rows.is_empty() {
+                ds.attr("rows", s.rows.clone());
+            }
+        }
+    }
 }
 
 /// Write the result file atomically (temporary file, fsync, rename).

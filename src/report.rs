@@ -1,7 +1,7 @@
 //! Terminal reports: what `cavern check` prints about a model, and the summary table of a run.
 
-use crate::config::RunPlan;
-use crate::run::{bytes_label, MemoryEstimate, RunResult};
+use crate::config::{Method, MethodRequest, RunPlan};
+use crate::run::{bytes_label, resolved_threads, MemoryEstimate, RunResult, SolverChoice};
 use cavern_model::{Channel, CouplingForm, Envelope};
 use std::fmt::Write;
 
@@ -33,6 +33,15 @@ fn envelope_text(e: &Envelope, tu: &str) -> String {
     }
 }
 
+/// " us" etc. after a time in physical units; nothing in dimensionless units.
+fn time_suffix(plan: &RunPlan) -> String {
+    if plan.units.seconds_per_time_unit().is_some() {
+        format!(" {}", plan.units.time_label())
+    } else {
+        String::new()
+    }
+}
+
 fn sig(x: f64) -> String {
     if x == 0.0 {
         "0".into()
@@ -43,8 +52,21 @@ fn sig(x: f64) -> String {
     }
 }
 
+fn memory_line(what: &str, mem: &MemoryEstimate, verdict: &str) -> String {
+    format!(
+        "{what} ≈ {}; allowed {} ({} of {}) → {verdict}",
+        bytes_label(mem.needed),
+        mem.allowed_label(),
+        mem.share,
+        mem.physical
+            .map(bytes_label)
+            .unwrap_or_else(|| "unknown".into()),
+    )
+}
+
 /// The report of `cavern check`.
-pub fn check_text(plan: &RunPlan, dim: usize, mem: &MemoryEstimate) -> String {
+pub fn check_text(plan: &RunPlan, dim: usize, choice: &SolverChoice) -> String {
+    let mem = &choice.density;
     let u = plan.units;
     let fu = u.frequency_label();
     let tu = u.time_label();
@@ -73,23 +95,39 @@ pub fn check_text(plan: &RunPlan, dim: usize, mem: &MemoryEstimate) -> String {
             levels.join(", ")
         }
     );
+    let too_large = "TOO LARGE: `cavern run` will refuse (exit 2)";
+    let dm_verdict = match (mem.fits(), choice.requested) {
+        (true, _) => "ok",
+        (false, MethodRequest::Trajectories) => "too large, but not used",
+        (false, MethodRequest::Auto) => "too large: auto uses trajectories",
+        (false, MethodRequest::DensityMatrix) => too_large,
+    };
     let _ = writeln!(
         s,
-        "memory      density matrix needs ≈ {}; allowed {} ({} of {}) → {}",
-        bytes_label(mem.needed),
-        mem.physical
-            .map(|p| bytes_label((p as f64 * mem.share) as u128))
-            .unwrap_or_else(|| "unknown".into()),
-        mem.share,
-        mem.physical
-            .map(bytes_label)
-            .unwrap_or_else(|| "unknown".into()),
-        if mem.fits() {
-            "ok"
-        } else {
-            "TOO LARGE: `cavern run` will refuse (exit 2)"
-        }
+        "memory      {}",
+        memory_line("density matrix needs", mem, dm_verdict)
     );
+    if let (Some(t), Some(tp)) = (&choice.trajectories, &plan.solver.trajectories) {
+        let verdict = match (choice.method, t.fits()) {
+            (Method::Trajectories, true) => "ok",
+            (Method::Trajectories, false) => too_large,
+            (Method::DensityMatrix, true) => "ok, but not used",
+            (Method::DensityMatrix, false) => "too large, but not used",
+        };
+        let _ = writeln!(
+            s,
+            "            {}",
+            memory_line(
+                &format!(
+                    "trajectories ({} on {} thread(s), jump records bounded by the largest jump rates) need",
+                    tp.trajectories,
+                    resolved_threads(plan)
+                ),
+                t,
+                verdict
+            )
+        );
+    }
     let t_end = plan.times.last().copied().unwrap_or(0.0);
     let _ = writeln!(
         s,
@@ -97,18 +135,52 @@ pub fn check_text(plan: &RunPlan, dim: usize, mem: &MemoryEstimate) -> String {
         sig(t_end),
         plan.times.len()
     );
+    let threads = if plan.solver.threads == 0 {
+        "one per core".to_string()
+    } else {
+        plan.solver.threads.to_string()
+    };
     let _ = writeln!(
         s,
-        "solver      {} (adaptive Dormand–Prince 5(4)), rtol {:e}, atol {:e}, threads {}",
-        plan.solver.method.name(),
-        plan.solver.rtol,
-        plan.solver.atol,
-        if plan.solver.threads == 0 {
-            "one per core".to_string()
-        } else {
-            plan.solver.threads.to_string()
-        }
+        "method      {} ({})",
+        choice.method.name(),
+        choice.reason
     );
+    match choice.method {
+        Method::DensityMatrix => {
+            let _ = writeln!(
+                s,
+                "solver      density matrix, adaptive Dormand–Prince 5(4), rtol {:e}, atol {:e}, threads {threads}",
+                plan.solver.rtol, plan.solver.atol
+            );
+        }
+        Method::Trajectories => {
+            let _ = writeln!(
+                s,
+                "solver      quantum trajectories (Monte Carlo wave functions; adaptive Dormand–Prince 5(4) between jumps), rtol {:e}, atol {:e}, threads {threads}",
+                plan.solver.rtol, plan.solver.atol
+            );
+        }
+    }
+    if let Some(tp) = &plan.solver.trajectories {
+        let tu = time_suffix(plan);
+        let _ = writeln!(
+            s,
+            "ensemble    {} trajectories (seed {}), keep {}; results are means ± standard errors",
+            tp.trajectories, tp.seed, tp.keep
+        );
+        let _ = writeln!(
+            s,
+            "clicks      counts in bins of {}{tu}; g² and waiting times of {} over t = {} … {}{tu}, delays up to {}{tu}",
+            sig(tp.bin_width),
+            tp.correlate
+                .map(|c| c.label())
+                .unwrap_or_else(|| "no channel (the model has no jump operators)".into()),
+            sig(tp.correlate_after),
+            sig(t_end),
+            sig(tp.max_delay)
+        );
+    }
     let _ = writeln!(s, "\nHamiltonian and dissipators (config values, {fu}; cavern uses 2π × value where physical):");
     for (i, st) in net.sites.iter().enumerate() {
         let _ = writeln!(
@@ -251,7 +323,9 @@ pub fn check_text(plan: &RunPlan, dim: usize, mem: &MemoryEstimate) -> String {
     s
 }
 
-/// The summary table printed after a run: value at the first and last sample, min and max.
+/// The summary table printed after a run: value at the first and last sample, min and max (for
+/// trajectories: mean ± standard error at the first and last sample, min and max of the mean),
+/// then the solver line and, for trajectories, the jumps per channel.
 pub fn summary_table(plan: &RunPlan, res: &RunResult) -> String {
     let tu = plan.units.time_label();
     let t0 = res.times.first().copied().unwrap_or(0.0);
@@ -264,25 +338,44 @@ pub fn summary_table(plan: &RunPlan, res: &RunResult) -> String {
     };
     let h0 = format!("t = {}{tu}", sig(t0));
     let h1 = format!("t = {}{tu}", sig(t1));
+    let traj = res.trajectory.as_ref();
+    if let Some(t) = traj {
+        let _ = writeln!(
+            s,
+            "trajectory means ± standard errors of the mean over {} trajectories (min and max: of the mean)",
+            t.trajectories
+        );
+    }
+    let w = if traj.is_some() { 24 } else { 14 };
     let _ = writeln!(
         s,
-        "{:<22} {:<10} {:<22} {:>14} {:>14} {:>14} {:>14}",
+        "{:<22} {:<10} {:<22} {:>w$} {:>w$} {:>14} {:>14}",
         "quantity", "row", "unit", h0, h1, "min", "max"
     );
     for se in &res.series {
         for r in 0..se.n_rows() {
             let row = se.row(r);
+            let err = se.row_stderr(r);
             let label = se.rows.get(r).map(String::as_str).unwrap_or("-");
             let min = row.iter().copied().fold(f64::INFINITY, f64::min);
             let max = row.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+            let at = |k: Option<usize>| {
+                let v = k.and_then(|k| row.get(k)).copied().unwrap_or(f64::NAN);
+                if traj.is_some() {
+                    let e = k.and_then(|k| err.get(k)).copied().unwrap_or(f64::NAN);
+                    format!("{v:.6e} ± {e:.1e}")
+                } else {
+                    format!("{v:.6e}")
+                }
+            };
             let _ = writeln!(
                 s,
-                "{:<22} {:<10} {:<22} {:>14.6e} {:>14.6e} {:>14.6e} {:>14.6e}",
+                "{:<22} {:<10} {:<22} {:>w$} {:>w$} {:>14.6e} {:>14.6e}",
                 se.name,
                 label,
                 se.units,
-                row.first().copied().unwrap_or(f64::NAN),
-                row.last().copied().unwrap_or(f64::NAN),
+                at(Some(0)),
+                at(row.len().checked_sub(1)),
                 min,
                 max
             );
@@ -290,8 +383,46 @@ pub fn summary_table(plan: &RunPlan, res: &RunResult) -> String {
     }
     let _ = writeln!(
         s,
-        "\nsolver: {} steps ({} rejected), {} right-hand-side evaluations, {:.3} s wall on {} thread(s), d = {}",
-        res.stats.steps, res.stats.rejected, res.stats.rhs_evals, res.wall_seconds, res.threads, res.dim
+        "\nsolver: {} steps ({} rejected), {} right-hand-side evaluations, {:.3} s wall on {} thread(s), d = {}{}",
+        res.stats.steps,
+        res.stats.rejected,
+        res.stats.rhs_evals,
+        res.wall_seconds,
+        res.threads,
+        res.dim,
+        if traj.is_some() { " (summed over trajectories)" } else { "" }
     );
+    if let Some(t) = traj {
+        let per: Vec<String> = t
+            .channels
+            .iter()
+            .zip(&t.clicks.per_channel)
+            .map(|(c, n)| format!("{} {n}", c.label()))
+            .collect();
+        let _ = writeln!(
+            s,
+            "jumps per channel over {} trajectories: {}",
+            t.trajectories,
+            if per.is_empty() {
+                "none (the model has no jump operators)".into()
+            } else {
+                per.join(", ")
+            }
+        );
+        if let Some(c) = &t.clicks.correlation {
+            let g0 = c.g2.first().copied().unwrap_or(f64::NAN);
+            let _ = writeln!(
+                s,
+                "clicks of {}: mean rate {:.4e} {} over t = {} … {}{tu}; g²(first delay bin, τ < {}{tu}) = {:.3}",
+                t.channels[c.channel].label(),
+                plan.units.flux(c.mean_rate),
+                plan.units.flux_label(),
+                sig(c.window_start),
+                sig(c.window_end),
+                sig(2.0 * c.delay.first().copied().unwrap_or(0.0)),
+                g0
+            );
+        }
+    }
     s
 }

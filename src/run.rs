@@ -1,10 +1,16 @@
-//! Running a resolved plan: memory guard, time evolution, observables at the sample times.
+//! Running a resolved plan: solver choice and memory guard, time evolution (density matrix or
+//! quantum trajectories), observables at the sample times, click analysis of the jumps.
 
-use crate::config::{Method, RunPlan};
+use crate::clicks::{self, ClickAnalysis, ClickSettings};
+use crate::config::{Method, MethodRequest, RunPlan, TrajectoryPlan};
 use crate::AppError;
-use cavern_evolve::{density_workspace_bytes, evolve_density, DopriOptions, Par, Stats};
-use cavern_model::MasterEquation;
+use cavern_evolve::{
+    density_workspace_bytes, evolve_density, run_trajectories, DopriOptions, JumpRecord, Par,
+    Stats, TrajectoryOptions,
+};
+use cavern_model::{Channel, MasterEquation, ModeInit, C64};
 use cavern_observe as obs;
+use std::sync::atomic::{AtomicUsize, Ordering};
 use std::time::Instant;
 
 /// One recorded observable: `rows` time series of equal length (row-major `[rows, time]`).
@@ -18,8 +24,10 @@ pub struct Series {
     pub description: String,
     /// Label of each row (e.g. `site0`, `mode1`, `pattern0`); empty for a single unlabelled row.
     pub rows: Vec<String>,
-    /// Values, `rows.len().max(1)` × number of times, row-major.
+    /// Values, `rows.len().max(1)` × number of times, row-major (the mean for trajectories).
     pub data: Vec<f64>,
+    /// Standard error of the mean over trajectories, same layout; empty for the density matrix.
+    pub stderr: Vec<f64>,
 }
 
 impl Series {
@@ -31,6 +39,7 @@ impl Series {
             description: description.into(),
             rows,
             data: vec![f64::NAN; n * n_times],
+            stderr: Vec::new(),
         }
     }
 
@@ -44,9 +53,18 @@ impl Series {
         let t = self.data.len() / self.n_rows();
         &self.data[r * t..(r + 1) * t]
     }
+
+    /// Standard errors of row `r` (empty for the density matrix).
+    pub fn row_stderr(&self, r: usize) -> &[f64] {
+        if self.stderr.is_empty() {
+            return &[];
+        }
+        let t = self.stderr.len() / self.n_rows();
+        &self.stderr[r * t..(r + 1) * t]
+    }
 }
 
-/// The memory the density-matrix solver needs, against what the run may use.
+/// The memory a solver needs, against what the run may use.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct MemoryEstimate {
     /// Hilbert-space dimension d.
@@ -66,6 +84,13 @@ impl MemoryEstimate {
             Some(p) => (self.needed as f64) <= self.share * p as f64,
             None => true,
         }
+    }
+
+    /// The allowed bytes, as a label ("unknown" without /proc/meminfo).
+    pub fn allowed_label(&self) -> String {
+        self.physical
+            .map(|p| bytes_label((p as f64 * self.share) as u128))
+            .unwrap_or_else(|| "unknown".into())
     }
 }
 
@@ -91,30 +116,177 @@ pub fn bytes_label(b: u128) -> String {
     }
 }
 
-/// Estimate the workspace of `plan` (solver vectors plus recorded series).
-pub fn memory_estimate(plan: &RunPlan, dim: usize) -> MemoryEstimate {
-    let series = (plan.network.sites.len() * 3
-        + plan.network.modes.len() * 6
-        + plan.observe.patterns.len()
-        + 2) as u128
+/// Bytes of the recorded series (mean and, for trajectories, standard error).
+fn series_bytes(plan: &RunPlan) -> u128 {
+    (plan.network.sites.len() * 3 + plan.network.modes.len() * 6 + plan.observe.patterns.len() + 2)
+        as u128
         * plan.times.len() as u128
-        * 8;
-    let needed = match plan.solver.method {
-        Method::DensityMatrix => density_workspace_bytes(dim) + series,
-    };
+        * 8
+}
+
+/// Estimate the density-matrix workspace of `plan` (solver matrices plus recorded series).
+pub fn density_memory(plan: &RunPlan, dim: usize) -> MemoryEstimate {
     MemoryEstimate {
         dim,
-        needed,
+        needed: density_workspace_bytes(dim) + series_bytes(plan),
         physical: physical_memory(),
         share: plan.solver.memory_share,
     }
 }
 
-/// Check the memory guard.
+/// Worker threads a run will use (`threads = 0` means one per core).
+pub fn resolved_threads(plan: &RunPlan) -> usize {
+    if plan.solver.threads > 0 {
+        plan.solver.threads
+    } else {
+        std::thread::available_parallelism().map_or(1, |n| n.get())
+    }
+}
+
+/// Upper bound of the total jump rate of the model (per time unit): every channel at its largest
+/// possible rate ‖L ψ‖² over the truncated space.
+pub fn max_jump_rate(plan: &RunPlan) -> f64 {
+    let mut r = 0.0;
+    for s in &plan.network.sites {
+        r += s.decay + s.dephasing / 2.0 + s.pump;
+    }
+    for m in &plan.network.modes {
+        r += m.loss * (1.0 + 2.0 * m.thermal) * (m.levels - 1) as f64;
+    }
+    r
+}
+
+/// Estimate the memory of a trajectory run: per worker thread the integrator's vectors and a copy
+/// of H_eff; shared the sparse operators, the per-block sums of the statistics, the kept traces
+/// and the jump records (bounded with [`max_jump_rate`], so usually far fewer).
+pub fn trajectory_memory(plan: &RunPlan, tp: &TrajectoryPlan, dim: usize) -> MemoryEstimate {
+    let d = dim as u128;
+    let n = plan.network.sites.len() as u128;
+    let m = plan.network.modes.len() as u128;
+    // bytes of a complex number
+    let c = 16u128;
+    // non-zeros per row of H (diagonal, Rabi flips, mode drives, site–mode and site–site terms)
+    let row_nnz = 1 + n + 2 * m + 2 * n * m + n * n.saturating_sub(1);
+    let groups = 6 + m; // static part and envelope-scaled terms
+    let op_bytes = d * row_nnz * (c + 8) + groups * (d + 1) * 8;
+    let jumps_ops = plan.network.channels().len() as u128 * d * (c + 16);
+    let per_worker = 14 * d * c + op_bytes;
+    let threads = resolved_threads(plan) as u128;
+    let n_t = plan.times.len() as u128;
+    let n_traj = tp.trajectories as u128;
+    // one f64 sum and sum of squares per observable and time, per block of 16 trajectories
+    let n_obs = (plan.network.sites.len() * 3
+        + plan.network.modes.len() * 5
+        + plan.observe.patterns.len()) as u128;
+    let sums = n_traj.div_ceil(16).max(1) * 2 * n_obs * n_t * 8;
+    let kept = tp.keep as u128 * n_obs * n_t * 8;
+    let t_end = plan.times.last().copied().unwrap_or(0.0);
+    let max_jumps = (tp.trajectories as f64 * t_end * max_jump_rate(plan)).min(1e30) as u128;
+    let jumps = max_jumps * 48; // records in memory and as output columns
+    MemoryEstimate {
+        dim,
+        needed: threads * per_worker
+            + 3 * op_bytes
+            + jumps_ops
+            + sums
+            + kept
+            + jumps
+            + 2 * series_bytes(plan),
+        physical: physical_memory(),
+        share: plan.solver.memory_share,
+    }
+}
+
+/// Which solver a run uses, and why.
+#[derive(Clone, Debug, PartialEq)]
+pub struct SolverChoice {
+    /// What the config asked for.
+    pub requested: MethodRequest,
+    /// What runs.
+    pub method: Method,
+    /// The density-matrix estimate.
+    pub density: MemoryEstimate,
+    /// The trajectory estimate (when the config has trajectory settings).
+    pub trajectories: Option<MemoryEstimate>,
+    /// One sentence: why this method.
+    pub reason: String,
+}
+
+impl SolverChoice {
+    /// The estimate of the method that runs.
+    pub fn estimate(&self) -> &MemoryEstimate {
+        match (self.method, &self.trajectories) {
+            (Method::Trajectories, Some(t)) => t,
+            _ => &self.density,
+        }
+    }
+}
+
+/// Choose the solver for `plan` with Hilbert-space dimension `dim` (nothing is allocated).
+pub fn choose(plan: &RunPlan, dim: usize) -> SolverChoice {
+    let density = density_memory(plan, dim);
+    let trajectories = plan
+        .solver
+        .trajectories
+        .as_ref()
+        .map(|tp| trajectory_memory(plan, tp, dim));
+    let requested = plan.solver.method;
+    let (method, reason) = match requested {
+        MethodRequest::DensityMatrix => (Method::DensityMatrix, "requested in the config".into()),
+        MethodRequest::Trajectories => (Method::Trajectories, "requested in the config".into()),
+        MethodRequest::Auto => {
+            if density.fits() {
+                (
+                    Method::DensityMatrix,
+                    format!(
+                        "auto: the density matrix fits in memory (needs ≈ {} of the allowed {})",
+                        bytes_label(density.needed),
+                        density.allowed_label()
+                    ),
+                )
+            } else {
+                (
+                    Method::Trajectories,
+                    format!(
+                        "auto: the density matrix would need ≈ {}, more than the allowed {}; trajectories need ≈ {}",
+                        bytes_label(density.needed),
+                        density.allowed_label(),
+                        trajectories.map_or("?".into(), |t| bytes_label(t.needed))
+                    ),
+                )
+            }
+        }
+    };
+    SolverChoice {
+        requested,
+        method,
+        density,
+        trajectories,
+        reason,
+    }
+}
+
+/// Check the memory guard of the chosen solver, and that trajectories start from a pure state.
 ///
 /// # Errors
 /// [`AppError::Input`] (exit 2) naming the estimate and what to change.
-pub fn memory_guard(plan: &RunPlan, est: &MemoryEstimate) -> Result<(), AppError> {
+pub fn memory_guard(plan: &RunPlan, choice: &SolverChoice) -> Result<(), AppError> {
+    let file = plan.path.display();
+    if choice.method == Method::Trajectories {
+        if let Some(m) = plan
+            .initial
+            .modes
+            .iter()
+            .position(|s| matches!(s, ModeInit::Thermal(_)))
+        {
+            return Err(AppError::Input(format!(
+                "{file}: {}; the trajectory solver evolves pure states (state vectors), but the initial state of mode `{}` is thermal, i.e. mixed. \
+                 Use a pure initial state (\"vacuum\", {{ fock = n }}, {{ coherent = α }}), or reduce the model so that the density matrix fits",
+                choice.reason, plan.mode_names[m]
+            )));
+        }
+    }
+    let est = choice.estimate();
     if est.fits() {
         return Ok(());
     }
@@ -124,18 +296,63 @@ pub fn memory_guard(plan: &RunPlan, est: &MemoryEstimate) -> Result<(), AppError
     } else {
         " (more than this machine's whole memory, so raising `memory_share` cannot help)"
     };
-    Err(AppError::Input(format!(
-        "{}: the density-matrix solver needs about {} for Hilbert-space dimension d = {} ({} sites, mode levels {:?}), \
-         more than [solver] memory_share = {} of this machine's {} of memory. Reduce the Fock truncation (`levels`) \
-         or the number of sites{raise}; networks this large are meant for the quantum-trajectory solver (planned).",
-        plan.path.display(),
-        bytes_label(est.needed),
+    let allowed = format!(
+        "[solver] memory_share = {} of this machine's {} of memory",
+        est.share,
+        est.physical
+            .map(bytes_label)
+            .unwrap_or_else(|| "unknown".into())
+    );
+    let shape = format!(
+        "Hilbert-space dimension d = {} ({} sites, mode levels {:?})",
         est.dim,
         plan.network.sites.len(),
-        levels,
-        est.share,
-        est.physical.map(bytes_label).unwrap_or_else(|| "unknown".into())
-    )))
+        levels
+    );
+    Err(AppError::Input(match (choice.method, choice.requested) {
+        (Method::DensityMatrix, _) => format!(
+            "{file}: the density-matrix solver needs about {} for {shape}, more than {allowed}. Reduce the Fock truncation (`levels`) \
+             or the number of sites{raise}; or use [solver] method = \"trajectories\" (or \"auto\"), which stores state vectors only.",
+            bytes_label(est.needed)
+        ),
+        (Method::Trajectories, req) => format!(
+            "{file}: {}the trajectory solver needs about {} for {shape} ({} trajectories on {} thread(s), including up to {} for jump records), more than {allowed}. \
+             Reduce the Fock truncation (`levels`), the number of sites, the trajectories, `keep` or the number of samples{raise}.",
+            if req == MethodRequest::Auto {
+                format!("neither solver fits: the density matrix would need about {}, and ", bytes_label(choice.density.needed))
+            } else {
+                String::new()
+            },
+            bytes_label(est.needed),
+            plan.solver.trajectories.as_ref().map_or(0, |t| t.trajectories),
+            resolved_threads(plan),
+            bytes_label(
+                (plan.solver.trajectories.as_ref().map_or(0, |t| t.trajectories) as f64
+                    * plan.times.last().copied().unwrap_or(0.0)
+                    * max_jump_rate(plan)) as u128
+                    * 48
+            )
+        ),
+    }))
+}
+
+/// What a trajectory run produced besides the averaged series.
+#[derive(Clone, Debug)]
+pub struct TrajectoryOutput {
+    /// Number of trajectories.
+    pub trajectories: usize,
+    /// Run seed.
+    pub seed: u64,
+    /// Every jump, ordered by trajectory then time.
+    pub jumps: Vec<JumpRecord>,
+    /// Jump channels (index = `JumpRecord::channel`).
+    pub channels: Vec<Channel>,
+    /// Traces of the first `keep` trajectories: per series, `[trajectory][row][time]` row-major.
+    pub kept: Vec<(String, Vec<f64>)>,
+    /// Number of kept trajectories.
+    pub keep: usize,
+    /// Counts, rates, waiting times and g².
+    pub clicks: ClickAnalysis,
 }
 
 /// Everything a finished run produced.
@@ -155,6 +372,10 @@ pub struct RunResult {
     pub dim: usize,
     /// Warnings to show the user (also written to the output).
     pub warnings: Vec<String>,
+    /// The solver used, the one requested, and why.
+    pub choice: SolverChoice,
+    /// Jumps, clicks and kept traces of a trajectory run.
+    pub trajectory: Option<TrajectoryOutput>,
 }
 
 impl RunResult {
@@ -164,8 +385,9 @@ impl RunResult {
     }
 }
 
-/// Build the observable table for `plan`.
-fn make_series(plan: &RunPlan, n_t: usize) -> Vec<Series> {
+/// Build the observable table for `plan` solved by `method` (trajectories have no purity and no
+/// trace error: every trajectory is a normalised pure state).
+fn make_series(plan: &RunPlan, n_t: usize, method: Method) -> Vec<Series> {
     let n = plan.network.sites.len();
     let sites: Vec<String> = (0..n).map(|i| format!("site{i}")).collect();
     let modes = plan.mode_names.clone();
@@ -240,15 +462,50 @@ fn make_series(plan: &RunPlan, n_t: usize) -> Vec<Series> {
             n_t,
         ));
     }
-    v.push(Series::new("purity", "1", "Tr rho^2", Vec::new(), n_t));
-    v.push(Series::new(
-        "trace_error",
-        "1",
-        "|Tr rho - 1| (integration error)",
-        Vec::new(),
-        n_t,
-    ));
+    if method == Method::DensityMatrix {
+        v.push(Series::new("purity", "1", "Tr rho^2", Vec::new(), n_t));
+        v.push(Series::new(
+            "trace_error",
+            "1",
+            "|Tr rho - 1| (integration error)",
+            Vec::new(),
+            n_t,
+        ));
+    }
     v
+}
+
+/// All observables of a normalised state vector, in series order (row-major rows).
+fn record_state(
+    plan: &RunPlan,
+    me: &MasterEquation,
+    series: &[Series],
+    psi: &[C64],
+    out: &mut [f64],
+) {
+    let space = &me.space;
+    let n = space.n_sites();
+    let sz: Vec<f64> = (0..n).map(|i| obs::state::spin_z(space, psi, i)).collect();
+    let mut k = 0;
+    for s in series {
+        for r in 0..s.n_rows() {
+            out[k] = match s.name.as_str() {
+                "spin_z" => sz[r],
+                "spin_x" => obs::state::spin_x(space, psi, r),
+                "spin_y" => obs::state::spin_y(space, psi, r),
+                "photon_number" => obs::state::photon_number(space, psi, r),
+                "output_flux" => plan
+                    .units
+                    .flux(plan.network.modes[r].loss * obs::state::photon_number(space, psi, r)),
+                "field_re" => obs::state::field(space, psi, r).re,
+                "field_im" => obs::state::field(space, psi, r).im,
+                "top_level_population" => obs::state::top_level_population(space, psi, r),
+                "pattern_overlap" => obs::pattern_overlap(&sz, &plan.observe.patterns[r]),
+                other => unreachable!("series {other} has no state-vector recorder"),
+            };
+            k += 1;
+        }
+    }
 }
 
 /// Record all observables of ρ at sample `k`.
@@ -306,32 +563,29 @@ pub fn initial_truncation_warnings(plan: &RunPlan) -> Vec<String> {
     w
 }
 
-/// Run `plan`. `progress(done, total)` is called after every sample.
+/// Run `plan`. `progress(done, total)` is called after every sample (density matrix) or every
+/// finished trajectory (trajectories), possibly from worker threads.
 ///
 /// # Errors
 /// [`AppError::Input`] for a model the config layer let through but the solver refuses or the
 /// memory guard; [`AppError::Runtime`] for NaN/Inf or step-size underflow (naming the time).
 pub fn run(
     plan: &RunPlan,
-    mut progress: impl FnMut(usize, usize) + Send,
+    progress: &(dyn Fn(usize, usize) + Sync),
 ) -> Result<RunResult, AppError> {
     let space = plan
         .network
         .space()
         .map_err(|e| AppError::Input(format!("{}: {e}", plan.path.display())))?;
-    let est = memory_estimate(plan, space.dim());
-    memory_guard(plan, &est)?;
+    let choice = choose(plan, space.dim());
+    memory_guard(plan, &choice)?;
     let me = plan
         .network
         .build()
         .map_err(|e| AppError::Input(format!("{}: {e}", plan.path.display())))?;
     let dim = me.space.dim();
-    let rho0 = plan
-        .initial
-        .density(&me.space)
-        .map_err(|e| AppError::Input(format!("{}: initial state: {e}", plan.path.display())))?;
     let n_t = plan.times.len();
-    let mut series = make_series(plan, n_t);
+    let mut series = make_series(plan, n_t, choice.method);
     let opts = DopriOptions {
         rtol: plan.solver.rtol,
         atol: plan.solver.atol,
@@ -344,22 +598,104 @@ pub fn run(
         .build()
         .map_err(|e| AppError::Runtime(format!("cannot start worker threads: {e}")))?;
     let threads = pool.current_num_threads();
+    let failed = |e: cavern_evolve::EvolveError| {
+        AppError::Runtime(format!(
+            "{}: the time evolution failed: {e}",
+            plan.path.display()
+        ))
+    };
     let start = Instant::now();
-    let stats = pool
-        .install(|| {
-            evolve_density(&me, &rho0, &plan.times, opts, |k, _t, rho, _st| {
-                record(plan, &me, &mut series, k, n_t, rho);
-                progress(k + 1, n_t);
-            })
-        })
-        .map_err(|e| {
-            AppError::Runtime(format!(
-                "{}: the time evolution failed: {e}",
-                plan.path.display()
-            ))
-        })?;
+    let (stats, trajectory) = match choice.method {
+        Method::DensityMatrix => {
+            let rho0 = plan.initial.density(&me.space).map_err(|e| {
+                AppError::Input(format!("{}: initial state: {e}", plan.path.display()))
+            })?;
+            let stats = pool
+                .install(|| {
+                    evolve_density(&me, &rho0, &plan.times, opts, |k, _t, rho, _st| {
+                        record(plan, &me, &mut series, k, n_t, rho);
+                        progress(k + 1, n_t);
+                    })
+                })
+                .map_err(failed)?;
+            (stats, None)
+        }
+        Method::Trajectories => {
+            let tp = plan
+                .solver
+                .trajectories
+                .as_ref()
+                .expect("the config layer resolves trajectory settings for this method");
+            let psi0 = plan.initial.vector(&me.space).map_err(|e| {
+                AppError::Input(format!("{}: initial state: {e}", plan.path.display()))
+            })?;
+            let n_obs: usize = series.iter().map(Series::n_rows).sum();
+            let topts = TrajectoryOptions {
+                dopri: opts,
+                trajectories: tp.trajectories,
+                seed: tp.seed,
+                keep: tp.keep,
+            };
+            let done = AtomicUsize::new(0);
+            let total = tp.trajectories;
+            let layout = series.clone();
+            let res = pool
+                .install(|| {
+                    run_trajectories(
+                        &me,
+                        &psi0,
+                        &plan.times,
+                        &topts,
+                        n_obs,
+                        |psi, out| record_state(plan, &me, &layout, psi, out),
+                        &|k| progress(done.fetch_add(k, Ordering::Relaxed) + k, total),
+                    )
+                })
+                .map_err(failed)?;
+            // split the [observable][time] statistics into the series
+            let mut off = 0;
+            let mut kept = Vec::new();
+            for s in series.iter_mut() {
+                let len = s.n_rows() * n_t;
+                s.data = res.mean[off..off + len].to_vec();
+                s.stderr = res.stderr[off..off + len].to_vec();
+                if !res.kept.is_empty() {
+                    let mut k = Vec::with_capacity(res.kept.len() * len);
+                    for trace in &res.kept {
+                        k.extend_from_slice(&trace[off..off + len]);
+                    }
+                    kept.push((s.name.clone(), k));
+                }
+                off += len;
+            }
+            let channel_index = |c: Channel| res.channels.iter().position(|x| *x == c);
+            let clicks = clicks::analyse(
+                &res.jumps,
+                &ClickSettings {
+                    trajectories: tp.trajectories,
+                    channels: res.channels.len(),
+                    t_end: plan.times.last().copied().unwrap_or(0.0),
+                    bin_width: tp.bin_width,
+                    correlate: tp.correlate.and_then(channel_index),
+                    correlate_after: tp.correlate_after,
+                    max_delay: tp.max_delay,
+                },
+            );
+            let out = TrajectoryOutput {
+                trajectories: tp.trajectories,
+                seed: tp.seed,
+                keep: res.kept.len(),
+                jumps: res.jumps,
+                channels: res.channels,
+                kept,
+                clicks,
+            };
+            (res.stats, Some(out))
+        }
+    };
     let wall_seconds = start.elapsed().as_secs_f64();
-    let mut warnings = initial_truncation_warnings(plan);
+    let mut warnings = plan.warnings.clone();
+    warnings.extend(initial_truncation_warnings(plan));
     if let Some(top) = series.iter().find(|s| s.name == "top_level_population") {
         for (m, name) in plan.mode_names.iter().enumerate() {
             let max = top.row(m).iter().copied().fold(0.0, f64::max);
@@ -381,5 +717,7 @@ pub fn run(
         threads,
         dim,
         warnings,
+        choice,
+        trajectory,
     })
 }

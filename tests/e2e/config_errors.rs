@@ -46,6 +46,19 @@ const REQUIRED: &[&str] = &[
     "toml-syntax",
     "override-index",
     "memory-guard",
+    // the trajectory solver's settings
+    "method-unknown",
+    "trajectories-zero",
+    "trajectories-negative",
+    "trajectories-missing-auto",
+    "seed-missing",
+    "seed-random",
+    "bin-width-too-large",
+    "bin-width-negative",
+    "correlate-unknown",
+    "max-delay-too-long",
+    "keep-too-many",
+    "thermal-trajectories",
 ];
 
 /// One corpus file and what its error must say.

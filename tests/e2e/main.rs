@@ -8,9 +8,12 @@
 //! - `run_output` — `cavern run`: the HDF5 layout, the summary table, quiet mode, determinism,
 //!   the truncation warning and output-path errors.
 //! - `scipy_reference` — a 2-spin + 1-mode run against an independent SciPy propagation.
+//! - `trajectories` — the quantum-trajectory solver: agreement with the density matrix,
+//!   antibunching, Poissonian counts, thread-count reproducibility, `auto`, the file layout.
 
 mod check;
 mod config_errors;
 mod run_output;
 mod scipy_reference;
+mod trajectories;
 mod util;

@@ -82,6 +82,8 @@ with h5py.File(h5, 'r') as f:
     check(steps > 0, f'solver steps = {steps}')
     check(rhs >= 6 * steps, f'solver rhs_evaluations = {rhs} < 6 * steps = {6 * steps}')
     check(text(s.get('method')) == 'density-matrix', f"solver method {s.get('method')!r}")
+    check(text(s.get('method_requested')) == 'density-matrix', f"solver method_requested {s.get('method_requested')!r}")
+    check('jumps' not in f and 'clicks' not in f, 'a density-matrix run wrote /jumps or /clicks')
     print('solver', steps, int(s['rejected_steps']), rhs, int(s['threads']), sep='\t')
 
     m = f['model'].attrs
