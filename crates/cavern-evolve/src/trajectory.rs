@@ -30,16 +30,26 @@ struct Group {
     val: Vec<C64>,
 }
 
-/// dψ/dt = −i H_eff(t) ψ as a right-hand side on state vectors.
+/// dψ/dt = −i H_eff(t) ψ as a right-hand side on state vectors. Cloning is cheap: the operator
+/// data are shared.
+#[derive(Clone)]
 pub struct EffectiveRhs {
     d: usize,
-    groups: Vec<Group>,
+    groups: std::sync::Arc<Vec<Group>>,
     coeff: Vec<f64>,
+    par: Par,
 }
 
+/// Dimension from which one trajectory's matrix-vector products are split over threads (and
+/// trajectories then run one after another).
+pub const PARALLEL_STATE_DIM: usize = 1 << 15;
+
+/// Rows per parallel task of the matrix-vector product (fixed: thread-count independent).
+const ROWS_PER_TASK: usize = 4096;
+
 impl EffectiveRhs {
-    /// Build from a master equation.
-    pub fn new(me: &MasterEquation) -> Self {
+    /// Build from a master equation; `par` selects a parallel matrix-vector product for large d.
+    pub fn new(me: &MasterEquation, par: Par) -> Self {
         let mi = C64::new(0.0, -1.0);
         let mut a0 = me.static_hamiltonian.scaled(mi);
         for j in &me.jumps {
@@ -61,8 +71,24 @@ impl EffectiveRhs {
         Self {
             d: me.space.dim(),
             coeff: vec![1.0; groups.len()],
-            groups,
+            groups: std::sync::Arc::new(groups),
+            par,
         }
+    }
+
+    fn row(&self, r: usize, y: &[C64]) -> C64 {
+        let mut acc = C64::new(0.0, 0.0);
+        for (g, &c) in self.groups.iter().zip(&self.coeff) {
+            if c == 0.0 {
+                continue;
+            }
+            let mut s = C64::new(0.0, 0.0);
+            for k in g.ptr[r]..g.ptr[r + 1] {
+                s += g.val[k] * y[g.col[k]];
+            }
+            acc += s * c;
+        }
+        acc
     }
 }
 
@@ -71,22 +97,22 @@ impl Rhs for EffectiveRhs {
         self.d
     }
     fn eval(&mut self, t: f64, y: &[C64], dy: &mut [C64]) {
-        for (c, g) in self.coeff.iter_mut().zip(&self.groups) {
+        for (c, g) in self.coeff.iter_mut().zip(self.groups.iter()) {
             *c = g.envelope.value(t);
         }
-        for (r, o) in dy.iter_mut().enumerate() {
-            let mut acc = C64::new(0.0, 0.0);
-            for (g, &c) in self.groups.iter().zip(&self.coeff) {
-                if c == 0.0 {
-                    continue;
-                }
-                let mut s = C64::new(0.0, 0.0);
-                for k in g.ptr[r]..g.ptr[r + 1] {
-                    s += g.val[k] * y[g.col[k]];
-                }
-                acc += s * c;
+        if self.par == Par::Rayon && self.d >= PARALLEL_STATE_DIM {
+            let me = &*self;
+            dy.par_chunks_mut(ROWS_PER_TASK)
+                .enumerate()
+                .for_each(|(b, o)| {
+                    for (i, x) in o.iter_mut().enumerate() {
+                        *x = me.row(b * ROWS_PER_TASK + i, y);
+                    }
+                });
+        } else {
+            for (r, o) in dy.iter_mut().enumerate() {
+                *o = self.row(r, y);
             }
-            *o = acc;
         }
     }
 }
@@ -182,10 +208,25 @@ where
     }
     let n_t = times.len();
     let n_blocks = opts.trajectories.div_ceil(BLOCK);
+    // small states: trajectories in parallel, each sequential; large states: one trajectory at a
+    // time with parallel matrix-vector products and vector operations
+    let large = opts.dopri.par == Par::Rayon && psi0.len() >= PARALLEL_STATE_DIM;
+    let inner = if large { Par::Rayon } else { Par::Seq };
+    let base = EffectiveRhs::new(me, inner);
     let block = |b: usize| -> Result<BlockOut, EvolveError> {
         let mut out = BlockOut::new(n_obs * n_t);
         for k in b * BLOCK..((b + 1) * BLOCK).min(opts.trajectories) {
-            let one = one_trajectory(me, psi0, times, opts, k as u64, n_obs, &observe)?;
+            let one = one_trajectory(
+                me,
+                base.clone(),
+                psi0,
+                times,
+                opts,
+                inner,
+                k as u64,
+                n_obs,
+                &observe,
+            )?;
             for (i, &x) in one.trace.iter().enumerate() {
                 out.sum[i] += x;
                 out.sq[i] += x * x;
@@ -201,10 +242,6 @@ where
         }
         Ok(out)
     };
-    let blocks: Vec<Result<BlockOut, EvolveError>> = match opts.dopri.par {
-        Par::Rayon => (0..n_blocks).into_par_iter().map(block).collect(),
-        Par::Seq => (0..n_blocks).map(block).collect(),
-    };
     let n = opts.trajectories as f64;
     let mut sum = vec![0.0; n_obs * n_t];
     let mut sq = vec![0.0; n_obs * n_t];
@@ -217,17 +254,30 @@ where
         channels: me.jumps.iter().map(|j| j.channel).collect(),
         stats: Stats::default(),
     };
-    for b in blocks {
-        let b = b?;
-        for i in 0..sum.len() {
-            sum[i] += b.sum[i];
-            sq[i] += b.sq[i];
+    // blocks run in waves; each wave is reduced in block order, so memory stays bounded and the
+    // sums do not depend on the thread count
+    let wave = 4 * rayon::current_num_threads().max(1);
+    let mut first = 0;
+    while first < n_blocks {
+        let last = (first + wave).min(n_blocks);
+        let blocks: Vec<Result<BlockOut, EvolveError>> = if opts.dopri.par == Par::Rayon && !large {
+            (first..last).into_par_iter().map(block).collect()
+        } else {
+            (first..last).map(block).collect()
+        };
+        first = last;
+        for b in blocks {
+            let b = b?;
+            for i in 0..sum.len() {
+                sum[i] += b.sum[i];
+                sq[i] += b.sq[i];
+            }
+            res.jumps.extend(b.jumps);
+            res.kept.extend(b.kept);
+            res.stats.steps += b.stats.steps;
+            res.stats.rejected += b.stats.rejected;
+            res.stats.rhs_evals += b.stats.rhs_evals;
         }
-        res.jumps.extend(b.jumps);
-        res.kept.extend(b.kept);
-        res.stats.steps += b.stats.steps;
-        res.stats.rejected += b.stats.rejected;
-        res.stats.rhs_evals += b.stats.rhs_evals;
     }
     res.mean = sum.iter().map(|s| s / n).collect();
     res.stderr = sum
@@ -274,9 +324,11 @@ struct OneTrajectory {
 /// Evolve trajectory `k`.
 fn one_trajectory<F>(
     me: &MasterEquation,
+    mut rhs: EffectiveRhs,
     psi0: &[C64],
     times: &[f64],
     opts: &TrajectoryOptions,
+    par: Par,
     k: u64,
     n_obs: usize,
     observe: &F,
@@ -288,11 +340,7 @@ where
     let n_t = times.len();
     let mut rng = ChaCha8Rng::seed_from_u64(opts.seed);
     rng.set_stream(k);
-    let mut rhs = EffectiveRhs::new(me);
-    let dopri = DopriOptions {
-        par: Par::Seq,
-        ..opts.dopri
-    };
+    let dopri = DopriOptions { par, ..opts.dopri };
     let t0 = times[0];
     let mut ode = Dopri5::new(&mut rhs, t0, psi0, dopri)?;
     let mut trace = vec![0.0; n_obs * n_t];
