@@ -38,6 +38,14 @@ enum Command {
     },
 }
 
+/// Write to standard output, ignoring a closed pipe (`cavern run … | head` must not panic; the
+/// result file is what matters).
+fn say(text: &str) {
+    use std::io::Write;
+    let mut o = std::io::stdout().lock();
+    let _ = o.write_all(text.as_bytes()).and_then(|()| o.flush());
+}
+
 fn load(file: &Path) -> Result<RunPlan, AppError> {
     config::load(file).map_err(|e| AppError::Input(e.to_string()))
 }
@@ -54,7 +62,7 @@ fn check(file: &Path) -> Result<(), AppError> {
         .map_err(|e| AppError::Input(format!("{}: initial state: {e}", file.display())))?;
     let dim = space.dim();
     let choice = run::choose(&plan, dim);
-    print!("{}", report::check_text(&plan, dim, &choice));
+    say(&report::check_text(&plan, dim, &choice));
     for w in plan
         .warnings
         .iter()
@@ -64,7 +72,7 @@ fn check(file: &Path) -> Result<(), AppError> {
         eprintln!("warning: {w}");
     }
     run::memory_guard(&plan, &choice)?;
-    println!("\nok: {} is valid", file.display());
+    say(&format!("\nok: {} is valid\n", file.display()));
     Ok(())
 }
 
@@ -113,7 +121,11 @@ fn run_cmd(
         _ => (plan.times.len(), "samples"),
     };
     if !quiet {
-        println!("method: {} ({})", choice.method.name(), choice.reason);
+        say(&format!(
+            "method: {} ({})\n",
+            choice.method.name(),
+            choice.reason
+        ));
     }
     let bar = ProgressBar::with_draw_target(Some(total as u64), ProgressDrawTarget::stderr());
     if quiet || !std::io::stderr().is_terminal() {
@@ -129,13 +141,13 @@ fn run_cmd(
     bar.finish_and_clear();
     output::write(&plan, &res, &out)?;
     if !quiet {
-        print!("{}", report::summary_table(&plan, &res));
+        say(&report::summary_table(&plan, &res));
     }
     for w in &res.warnings {
         eprintln!("warning: {w}");
     }
     if !quiet {
-        println!("wrote {}", out.display());
+        say(&format!("wrote {}\n", out.display()));
     }
     Ok(())
 }
