@@ -407,14 +407,22 @@ impl Dopri5 {
 
     fn stage(&mut self, par: Par, h: f64, coef: &[(usize, f64)]) {
         let (y, k) = (&self.y, &self.k);
+        // one fused pass: ytmp = y + h Σⱼ aⱼ kⱼ (at most six stages)
+        let mut ks: [&[C64]; 6] = [&[]; 6];
+        let mut ha = [0.0; 6];
+        for (m, &(j, a)) in coef.iter().enumerate() {
+            ks[m] = &k[j];
+            ha[m] = h * a;
+        }
+        let m = coef.len();
         for_chunks(par, &mut self.ytmp, |lo, o| {
-            o.copy_from_slice(&y[lo..lo + o.len()]);
-            for &(j, a) in coef {
-                let kj = &k[j][lo..lo + o.len()];
-                let ha = h * a;
-                for (x, kv) in o.iter_mut().zip(kj) {
-                    *x += kv * ha;
+            for (i, x) in o.iter_mut().enumerate() {
+                let g = lo + i;
+                let mut acc = y[g];
+                for q in 0..m {
+                    acc += ks[q][g] * ha[q];
                 }
+                *x = acc;
             }
         });
     }
@@ -437,8 +445,9 @@ impl Dopri5 {
                     + k[5][i] * E6
                     + k[6][i] * E7)
                     * h;
-                let sk = atol + rtol * y[i].norm().max(y1[i].norm());
-                acc += (e.norm() / sk).powi(2);
+                // |e|²/sk² without hypot: sk = atol + rtol·max(|y₀|, |y₁|)
+                let sk = atol + rtol * y[i].norm_sqr().max(y1[i].norm_sqr()).sqrt();
+                acc += e.norm_sqr() / (sk * sk);
             }
             acc
         });
