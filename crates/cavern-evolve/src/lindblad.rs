@@ -97,10 +97,11 @@ const CHUNK: usize = 8;
 const MAX_ACTIVE: usize = 256;
 
 /// Panel width for dimension d: the largest divisor of d that is at most [`MAX_PANEL`] and at
-/// most d/2 (so that even small problems split into panels). Wide panels keep the loops long;
-/// a divisor means no padding.
+/// most max(d/8, min(d/2, 48)): wide panels keep the inner loops long, while mid-sized problems
+/// (d of a few hundred) still split into enough panels to keep two or more threads busy. A
+/// divisor means no padding. (Measured with `benches/rhs.rs`; see docs/performance.md.)
 fn panel_width(d: usize) -> usize {
-    let cap = MAX_PANEL.min((d / 2).max(1));
+    let cap = MAX_PANEL.min((d / 8).max((d / 2).min(48))).max(1);
     (1..=cap).rev().find(|w| d.is_multiple_of(*w)).unwrap_or(1)
 }
 
