@@ -279,14 +279,8 @@ impl Dopri5 {
         &self.y
     }
 
-    /// Mutable access to the current state, for jumps in quantum trajectories. After changing it,
-    /// call [`Dopri5::restart`].
-    pub fn y_mut(&mut self) -> &mut [C64] {
-        &mut self.y
-    }
-
-    /// Re-evaluate f at the current state after [`Dopri5::y_mut`] changed it (keeps the step size).
-    pub fn restart<R: Rhs>(&mut self, rhs: &mut R) {
+    /// Re-evaluate f at the current state (keeps the step size).
+    fn restart<R: Rhs>(&mut self, rhs: &mut R) {
         rhs.eval(self.t, &self.y, &mut self.k[0]);
         self.stats.rhs_evals += 1;
         self.last_rejected = false;

@@ -172,11 +172,6 @@ fn norm2(v: &[C64]) -> f64 {
     v.iter().map(|z| z.norm_sqr()).sum()
 }
 
-/// Sparse y = L x for a jump operator (row-monomial or not).
-fn apply_op(op: &SparseOp, x: &[C64], y: &mut [C64]) {
-    op.apply(x, y);
-}
-
 /// Run the trajectories.
 ///
 /// `observe(ψ, out)` writes the `n_obs` observables of a normalised state into `out`.
@@ -406,7 +401,7 @@ where
                 ode.interpolate(t_stop, &mut scratch);
             }
             for (w, j) in weights.iter_mut().zip(&me.jumps) {
-                apply_op(&j.op, &scratch, &mut jumped);
+                j.op.apply(&scratch, &mut jumped);
                 *w = norm2(&jumped);
             }
             let total: f64 = weights.iter().sum();
@@ -423,7 +418,7 @@ where
                 }
                 u -= w;
             }
-            apply_op(&me.jumps[ch].op, &scratch, &mut jumped);
+            me.jumps[ch].op.apply(&scratch, &mut jumped);
             let nrm = norm2(&jumped).sqrt();
             jumped.iter_mut().for_each(|z| *z /= nrm);
             jumps.push(JumpRecord {
