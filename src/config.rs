@@ -79,6 +79,18 @@ struct RawConfig {
     initial: Option<RawInitial>,
     #[serde(default)]
     observe: RawObserve,
+    steady_state: Option<RawSteady>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSteady {
+    method: Option<String>,
+    tolerance: Option<f64>,
+    max_iterations: Option<i64>,
+    max_time: Option<f64>,
+    relaxation_rates: Option<i64>,
+    at_time: Option<f64>,
 }
 
 #[derive(Deserialize)]
@@ -355,6 +367,51 @@ pub struct RunPlan {
     pub observe: ObservePlan,
     /// Non-fatal remarks about the config (shown by `check` and `run`, stored in the output).
     pub warnings: Vec<String>,
+    /// Steady state and relaxation rates, when `[steady_state]` is present.
+    pub steady: Option<SteadyPlan>,
+}
+
+/// Which steady-state solver the config asks for.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum SteadyRequest {
+    /// Direct sparse LU when d² is small enough, else GMRES, else time evolution.
+    Auto,
+    /// Sparse LU of the Liouvillian with the trace condition.
+    Direct,
+    /// Restarted GMRES, matrix-free, Jacobi preconditioned.
+    Iterative,
+    /// Time evolution until dρ/dt is negligible.
+    Evolve,
+}
+
+impl SteadyRequest {
+    /// Name used in config and output.
+    pub fn name(self) -> &'static str {
+        match self {
+            SteadyRequest::Auto => "auto",
+            SteadyRequest::Direct => "direct",
+            SteadyRequest::Iterative => "iterative",
+            SteadyRequest::Evolve => "evolve",
+        }
+    }
+}
+
+/// Settings of the steady-state and relaxation-rate computation (`[steady_state]`).
+#[derive(Clone, Debug, PartialEq)]
+pub struct SteadyPlan {
+    /// Solver.
+    pub method: SteadyRequest,
+    /// Relative-residual tolerance of the iterative and evolution solvers (`None`: their defaults,
+    /// 1e-11 for GMRES on its augmented system and 1e-9 for evolution).
+    pub tolerance: Option<f64>,
+    /// Matrix–vector products allowed to GMRES.
+    pub max_iterations: usize,
+    /// Longest evolution of the fallback, in the time unit.
+    pub max_time: f64,
+    /// Number of Liouvillian eigenvalues near zero to compute (0 = none).
+    pub relaxation_rates: usize,
+    /// Time at which envelopes are frozen for the steady state (time unit).
+    pub at_time: f64,
 }
 
 /// Read and resolve a config file.
@@ -752,6 +809,11 @@ impl Resolver {
 
         let initial = self.resolve_initial(raw.initial.as_ref(), n_sites, &network.modes);
         let observe = self.resolve_observe(&raw.observe, n_sites);
+        let t_end = times.last().copied().unwrap_or(0.0);
+        let steady = raw
+            .steady_state
+            .as_ref()
+            .map(|st| self.resolve_steady(st, t_end));
         let mut solver = solver;
         solver.trajectories = self.resolve_trajectories(
             &raw.solver,
@@ -780,7 +842,79 @@ impl Resolver {
             solver,
             observe,
             warnings: std::mem::take(&mut self.warnings),
+            steady,
         })
+    }
+
+    fn resolve_steady(&mut self, st: &RawSteady, t_end: f64) -> SteadyPlan {
+        let method = match st.method.as_deref().unwrap_or("auto") {
+            "auto" => SteadyRequest::Auto,
+            "direct" => SteadyRequest::Direct,
+            "iterative" => SteadyRequest::Iterative,
+            "evolve" => SteadyRequest::Evolve,
+            other => {
+                let hint = nearest(other, &["auto", "direct", "iterative", "evolve"])
+                    .map(|s| format!(" (did you mean \"{s}\"?)"))
+                    .unwrap_or_default();
+                self.err(
+                    "steady_state.method",
+                    format!("unknown steady-state method `{other}`{hint}; allowed: \"auto\", \"direct\", \"iterative\", \"evolve\""),
+                );
+                SteadyRequest::Auto
+            }
+        };
+        if let Some(t) = st.tolerance {
+            if !(t > 0.0 && t < 1.0) {
+                self.err(
+                    "steady_state.tolerance",
+                    format!("must be a relative residual in (0, 1) (got {t})"),
+                );
+            }
+        }
+        let max_iterations = st.max_iterations.unwrap_or(5000);
+        if !(1..=100_000_000).contains(&max_iterations) {
+            self.err(
+                "steady_state.max_iterations",
+                format!("must be an integer 1 … 100000000 (got {max_iterations})"),
+            );
+        }
+        let max_time = st.max_time.unwrap_or(1e6);
+        if !(max_time > 0.0 && max_time.is_finite()) {
+            self.err(
+                "steady_state.max_time",
+                format!("must be a finite time > 0, in the time unit (got {max_time})"),
+            );
+        }
+        let rates = st.relaxation_rates.unwrap_or(6);
+        if !(0..=100).contains(&rates) {
+            self.err(
+                "steady_state.relaxation_rates",
+                format!("must be an integer 0 … 100 (got {rates})"),
+            );
+        }
+        let at_time = st.at_time.unwrap_or(t_end);
+        if !(at_time >= 0.0 && at_time.is_finite()) {
+            self.err(
+                "steady_state.at_time",
+                format!("must be a finite time ≥ 0, in the time unit (got {at_time})"),
+            );
+        }
+        SteadyPlan {
+            method,
+            tolerance: st.tolerance.filter(|t| *t > 0.0 && *t < 1.0),
+            max_iterations: max_iterations.clamp(1, 100_000_000) as usize,
+            max_time: if max_time > 0.0 && max_time.is_finite() {
+                max_time
+            } else {
+                1e6
+            },
+            relaxation_rates: rates.clamp(0, 100) as usize,
+            at_time: if at_time >= 0.0 && at_time.is_finite() {
+                at_time
+            } else {
+                t_end
+            },
+        }
     }
 
     fn resolve_time(&mut self, t: &RawTime) -> Vec<f64> {

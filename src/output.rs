@@ -150,9 +150,120 @@ pub fn tree(plan: &RunPlan, res: &RunResult) -> Group {
             );
         write_trajectory_groups(&mut root, plan, res, t);
     }
+    if let Some(st) = &res.steady {
+        write_steady_groups(&mut root, plan, st);
+    }
     root.group("input")
         .dataset("config_toml", &[], Data::Str(plan.source.clone()));
     root
+}
+
+/// `/steady_state` and `/relaxation`.
+fn write_steady_groups(root: &mut Group, plan: &RunPlan, st: &crate::run::SteadyOutput) {
+    let rate_unit = plan.units.rate_label();
+    let g = root.group("steady_state");
+    g.attr("unique", i64::from(!st.not_unique))
+        .attr("wall_seconds", st.wall_seconds)
+        .attr(
+            "note",
+            if st.not_unique {
+                "the steady state is not unique: the time evolution from the given initial state \
+                 decides the outcome; no steady-state observables are written"
+            } else {
+                "observables of the steady state rho_ss (L rho_ss = 0, Tr rho_ss = 1)"
+            },
+        );
+    if let Some(s) = &plan.steady {
+        g.attr("method_requested", s.method.name())
+            .attr("at_time", s.at_time);
+    }
+    if let Some(state) = &st.state {
+        g.attr("method", state.method.name())
+            .attr("residual", state.residual)
+            .attr("residual_units", rate_unit.as_str())
+            .attr(
+                "residual_definition",
+                "max |(L rho_ss)_rc| (angular, per time unit); relative_residual divides by the \
+                 generator scale times max |rho_ss|",
+            )
+            .attr("relative_residual", state.relative_residual)
+            .attr("iterations", state.iterations as i64);
+        if let Some(t) = state.time {
+            g.attr("time_reached", t);
+        }
+        if let Some(f) = &state.factor {
+            g.attr("factor_nnz_l", f.nnz_l as i64)
+                .attr("factor_nnz_u", f.nnz_u as i64)
+                .attr("factor_bytes", f.bytes as i64);
+        }
+        if !state.fallbacks.is_empty() {
+            g.attr("fallbacks", state.fallbacks.clone());
+        }
+    }
+    for s in &st.series {
+        let shape: Vec<usize> = if s.rows.is_empty() {
+            vec![]
+        } else {
+            vec![s.rows.len()]
+        };
+        let data = if s.rows.is_empty() {
+            s.data[..1].to_vec()
+        } else {
+            s.data.clone()
+        };
+        let ds = g.dataset(&s.name, &shape, Data::F64(data));
+        ds.attr("units", s.units.as_str())
+            .attr("description", s.description.as_str());
+        if !s.rows.is_empty() {
+            ds.attr("rows", s.rows.clone());
+        }
+    }
+    if st.relaxation.is_none() && st.relaxation_error.is_none() {
+        return;
+    }
+    let r = root.group("relaxation");
+    if let Some(e) = &st.relaxation_error {
+        r.attr("error", e.as_str());
+    }
+    if let Some(rel) = &st.relaxation {
+        let n = rel.eigenvalues.len();
+        r.attr("zero_dimension", rel.zero_dimension as i64)
+            .attr("zero_dimension_is_lower_bound", i64::from(rel.zero_dimension_is_lower_bound))
+            .attr("unique", i64::from(rel.degenerate.is_none()))
+            .attr("shift", rel.shift)
+            .attr("units", rate_unit.as_str())
+            .attr(
+                "description",
+                "eigenvalues lambda of the Liouvillian nearest zero (angular, per time unit), \
+                 zeros first then slowest decay first; every deviation from the steady state decays \
+                 as exp(lambda t)",
+            );
+        if let Some(gap) = rel.gap {
+            r.attr("spectral_gap", gap);
+        }
+        if let Some(ts) = rel.time_scale {
+            r.attr("relaxation_time", ts)
+                .attr("relaxation_time_units", plan.units.time_label());
+        }
+        r.dataset(
+            "eigenvalues_re",
+            &[n],
+            Data::F64(rel.eigenvalues.iter().map(|z| z.re).collect()),
+        )
+        .attr("units", rate_unit.as_str());
+        r.dataset(
+            "eigenvalues_im",
+            &[n],
+            Data::F64(rel.eigenvalues.iter().map(|z| z.im).collect()),
+        )
+        .attr("units", rate_unit.as_str());
+        r.dataset(
+            "error_estimates",
+            &[n],
+            Data::F64(rel.error_estimates.clone()),
+        )
+        .attr("units", rate_unit.as_str());
+    }
 }
 
 /// `/jumps`, `/clicks` and `/kept_trajectories` of a trajectory run.

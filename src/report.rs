@@ -162,6 +162,19 @@ pub fn check_text(plan: &RunPlan, dim: usize, choice: &SolverChoice) -> String {
             );
         }
     }
+    if let Some(sp) = &plan.steady {
+        let n = (dim as u128) * (dim as u128);
+        let _ = writeln!(
+            s,
+            "steady      {} solver ({} unknowns d²; GMRES workspace ≈ {}), {} relaxation rate(s), envelopes frozen at t = {}{}",
+            sp.method.name(),
+            n,
+            bytes_label(45 * n * 16),
+            sp.relaxation_rates,
+            sig(sp.at_time),
+            time_suffix(plan)
+        );
+    }
     if let Some(tp) = &plan.solver.trajectories {
         let tu = time_suffix(plan);
         let _ = writeln!(
@@ -423,6 +436,90 @@ pub fn summary_table(plan: &RunPlan, res: &RunResult) -> String {
                 g0
             );
         }
+    }
+    if let Some(st) = &res.steady {
+        s.push_str(&steady_text(plan, st));
+    }
+    s
+}
+
+/// The steady-state and relaxation part of the summary.
+fn steady_text(plan: &RunPlan, st: &crate::run::SteadyOutput) -> String {
+    let mut s = String::new();
+    let rate = plan.units.rate_label();
+    match &st.state {
+        Some(state) => {
+            let _ = writeln!(
+                s,
+                "\nsteady state ({}, {} iteration(s); residual max|𝓛ρ| = {:.2e} {rate}, relative {:.2e}):",
+                state.method.name(),
+                state.iterations,
+                state.residual,
+                state.relative_residual
+            );
+            let _ = writeln!(
+                s,
+                "{:<22} {:<10} {:<22} {:>14}",
+                "quantity", "row", "unit", "steady value"
+            );
+            for se in &st.series {
+                for r in 0..se.n_rows() {
+                    let label = se.rows.get(r).map(String::as_str).unwrap_or("-");
+                    let _ = writeln!(
+                        s,
+                        "{:<22} {:<10} {:<22} {:>14.6e}",
+                        se.name,
+                        label,
+                        se.units,
+                        se.row(r)[0]
+                    );
+                }
+            }
+        }
+        None => {
+            let _ = writeln!(
+                s,
+                "\nsteady state: NOT UNIQUE — the time evolution from the given initial state decides the outcome"
+            );
+        }
+    }
+    if let Some(rel) = &st.relaxation {
+        let ev: Vec<String> = rel
+            .eigenvalues
+            .iter()
+            .map(|z| {
+                // imaginary parts at rounding level are noise, not oscillations
+                if z.im.abs() <= 1e-12 * rel.scale {
+                    format!("{:.4e}", z.re)
+                } else {
+                    format!("{:.4e}{:+.4e}i", z.re, z.im)
+                }
+            })
+            .collect();
+        let _ = writeln!(
+            s,
+            "Liouvillian eigenvalues nearest 0 ({rate}): {}",
+            ev.join(", ")
+        );
+        let _ = writeln!(
+            s,
+            "zero eigenspace dimension {}{}; spectral gap {} {rate}{}",
+            rel.zero_dimension,
+            if rel.zero_dimension_is_lower_bound {
+                " (at least)"
+            } else {
+                ""
+            },
+            rel.gap
+                .map(|g| format!("{g:.4e}"))
+                .unwrap_or_else(|| "not found".into()),
+            rel.time_scale
+                .map(|t| format!(
+                    ", slowest relaxation time {t:.4e} {}",
+                    plan.units.time_label()
+                ))
+                .unwrap_or_default()
+        );
     }
     s
 }

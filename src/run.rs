@@ -2,7 +2,7 @@
 //! quantum trajectories), observables at the sample times, click analysis of the jumps.
 
 use crate::clicks::{self, ClickAnalysis, ClickSettings};
-use crate::config::{Method, MethodRequest, RunPlan, TrajectoryPlan};
+use crate::config::{Method, MethodRequest, RunPlan, SteadyRequest, TrajectoryPlan};
 use crate::AppError;
 use cavern_evolve::{
     density_workspace_bytes, evolve_density, run_trajectories, DopriOptions, JumpRecord, Par,
@@ -376,6 +376,27 @@ pub struct RunResult {
     pub choice: SolverChoice,
     /// Jumps, clicks and kept traces of a trajectory run.
     pub trajectory: Option<TrajectoryOutput>,
+    /// Steady state and relaxation rates, when the config asks for them.
+    pub steady: Option<SteadyOutput>,
+}
+
+/// What the steady-state computation produced.
+#[derive(Clone, Debug)]
+pub struct SteadyOutput {
+    /// Observables of ρₛₛ (one sample each), when a unique steady state was found.
+    pub series: Vec<Series>,
+    /// How ρₛₛ was obtained (its `rho` is emptied to save memory), or `None` when the steady state
+    /// is not unique.
+    pub state: Option<cavern_evolve::steady::SteadyState>,
+    /// Eigenvalues near zero, gap and degeneracy, when requested and computed.
+    pub relaxation: Option<cavern_evolve::steady::Relaxation>,
+    /// Why the relaxation rates are missing, if they were requested but failed.
+    pub relaxation_error: Option<String>,
+    /// True when the steady state is not unique (zero eigenspace of dimension ≥ 2, or a singular
+    /// direct solve): then the time evolution from the given initial state decides the outcome.
+    pub not_unique: bool,
+    /// Wall-clock seconds of the steady-state and relaxation computations.
+    pub wall_seconds: f64,
 }
 
 impl RunResult {
@@ -709,6 +730,10 @@ pub fn run(
             }
         }
     }
+    let steady = match &plan.steady {
+        Some(sp) => Some(pool.install(|| solve_steady(plan, &me, sp, &mut warnings))?),
+        None => None,
+    };
     Ok(RunResult {
         times: plan.times.clone(),
         series,
@@ -719,5 +744,88 @@ pub fn run(
         warnings,
         choice,
         trajectory,
+        steady,
+    })
+}
+
+/// Solve for the steady state and the relaxation rates of `me` as `sp` asks.
+///
+/// # Errors
+/// [`AppError::Runtime`] when no solver reaches a steady state (with the residual reached); a
+/// non-unique steady state is not an error but reported in the output.
+fn solve_steady(
+    plan: &RunPlan,
+    me: &cavern_model::MasterEquation,
+    sp: &crate::config::SteadyPlan,
+    warnings: &mut Vec<String>,
+) -> Result<SteadyOutput, AppError> {
+    use cavern_evolve::steady::{self, SteadyError, SteadyOptions};
+    let start = Instant::now();
+    let mut opts = SteadyOptions::default();
+    opts.gmres.max_iterations = sp.max_iterations;
+    if let Some(t) = sp.tolerance {
+        opts.gmres.tol = t;
+        opts.evolution.tol = t;
+    }
+    opts.evolution.max_time = sp.max_time;
+    opts.evolution.dopri.rtol = plan.solver.rtol.min(opts.evolution.dopri.rtol);
+    opts.evolution.dopri.atol = plan.solver.atol.min(opts.evolution.dopri.atol);
+    let t = sp.at_time;
+    let solved = match sp.method {
+        SteadyRequest::Auto => steady::steady_state(me, t, &opts),
+        SteadyRequest::Direct => steady::steady_state_direct(me, t, &opts.direct),
+        SteadyRequest::Iterative => steady::steady_state_gmres(me, t, &opts.gmres, None),
+        SteadyRequest::Evolve => steady::steady_state_evolve(me, t, &opts.evolution, None),
+    };
+    let mut relaxation = None;
+    let mut relaxation_error = None;
+    if sp.relaxation_rates > 0 {
+        let ropts = steady::RelaxationOptions {
+            count: sp.relaxation_rates,
+            ..Default::default()
+        };
+        match steady::relaxation(me, t, &ropts) {
+            Ok(r) => relaxation = Some(r),
+            Err(e) => relaxation_error = Some(e.to_string()),
+        }
+    }
+    let degenerate = relaxation.as_ref().and_then(|r| r.degenerate);
+    let (state, not_unique) = match solved {
+        Ok(st) if degenerate.is_none() => (Some(st), false),
+        Ok(_) => (None, true),
+        Err(SteadyError::Singular { .. }) => (None, true),
+        Err(e) => {
+            return Err(AppError::Runtime(format!(
+                "{}: the steady state could not be computed: {e}",
+                plan.path.display()
+            )))
+        }
+    };
+    if not_unique {
+        let dim = degenerate
+            .map(|k| format!(" (zero eigenspace of dimension {k})"))
+            .unwrap_or_default();
+        warnings.push(format!(
+            "the steady state is not unique{dim}: several attractors (e.g. several stored memories) \
+             coexist, so the time evolution from the given initial state, not the steady-state solver, \
+             decides the outcome"
+        ));
+    }
+    if let Some(e) = &relaxation_error {
+        warnings.push(format!("relaxation rates could not be computed: {e}"));
+    }
+    let mut series = make_series(plan, 1, Method::DensityMatrix);
+    let state = state.map(|mut st| {
+        record(plan, me, &mut series, 0, 1, &st.rho);
+        st.rho = Vec::new();
+        st
+    });
+    Ok(SteadyOutput {
+        series: if state.is_some() { series } else { Vec::new() },
+        state,
+        relaxation,
+        relaxation_error,
+        not_unique,
+        wall_seconds: start.elapsed().as_secs_f64(),
     })
 }

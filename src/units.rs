@@ -83,6 +83,15 @@ impl Units {
         }
     }
 
+    /// Unit label of an angular rate as computed internally (eigenvalues, residuals): rad per
+    /// time unit under physical units (e.g. `rad/us`), the inverse time unit otherwise.
+    pub fn rate_label(self) -> String {
+        match self {
+            Units::Physical(_) => format!("rad/{}", self.time_label()),
+            Units::Dimensionless => "1 (angular, per time unit)".into(),
+        }
+    }
+
     /// Unit label of a photon flux as written to the output.
     pub fn flux_label(self) -> &'static str {
         match self {

@@ -8,6 +8,7 @@
 //! - `run_output` — `cavern run`: the HDF5 layout, the summary table, quiet mode, determinism,
 //!   the truncation warning and output-path errors.
 //! - `scipy_reference` — a 2-spin + 1-mode run against an independent SciPy propagation.
+//! - `steady_state` — `[steady_state]`: analytic steady states, relaxation rates, non-uniqueness.
 //! - `trajectories` — the quantum-trajectory solver: agreement with the density matrix,
 //!   antibunching, Poissonian counts, thread-count reproducibility, `auto`, the file layout.
 
@@ -15,5 +16,6 @@ mod check;
 mod config_errors;
 mod run_output;
 mod scipy_reference;
+mod steady_state;
 mod trajectories;
 mod util;

@@ -4,6 +4,7 @@
 //! - [`lindblad`]: the matrix-free right-hand side on a dense density matrix.
 //! - [`evolve_density`]: both together, calling back at the requested sample times.
 //! - [`trajectory`]: quantum trajectories (Monte Carlo wave functions) of the same model.
+//! - [`steady`]: steady states (sparse LU, GMRES, evolution) and relaxation rates of the model.
 //!
 //! ```
 //! use cavern_model::{Network, SiteParams, ProductState, SpinInit};
@@ -23,11 +24,18 @@
 pub mod dopri;
 pub mod lindblad;
 pub mod par;
+pub mod steady;
 pub mod trajectory;
 
 pub use dopri::{integrate, Dopri5, DopriOptions, Rhs, Stats, StepOutcome};
 pub use lindblad::LindbladRhs;
 pub use par::Par;
+pub use steady::{
+    generator_scale, liouvillian, relaxation, steady_state, steady_state_direct,
+    steady_state_evolve, steady_state_gmres, DirectOptions, EvolutionOptions, FactorStats,
+    GmresOptions, Relaxation, RelaxationOptions, SteadyError, SteadyMethod, SteadyOptions,
+    SteadyState,
+};
 pub use trajectory::{run_trajectories, JumpRecord, TrajectoryOptions, TrajectoryResult};
 
 use cavern_model::MasterEquation;
