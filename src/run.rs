@@ -387,7 +387,7 @@ pub struct SteadyOutput {
     pub series: Vec<Series>,
     /// How ρₛₛ was obtained (its `rho` is emptied to save memory), or `None` when the steady state
     /// is not unique.
-    pub state: Option<cavern_evolve::steady::SteadyState>,
+    pub state: Option<cavern_evolve::steady::SteadySolution>,
     /// Eigenvalues near zero, gap and degeneracy, when requested and computed.
     pub relaxation: Option<cavern_evolve::steady::Relaxation>,
     /// Why the relaxation rates are missing, if they were requested but failed.

@@ -34,7 +34,7 @@ pub use steady::{
     generator_scale, liouvillian, relaxation, steady_state, steady_state_direct,
     steady_state_evolve, steady_state_gmres, DirectOptions, EvolutionOptions, FactorStats,
     GmresOptions, Relaxation, RelaxationOptions, SteadyError, SteadyMethod, SteadyOptions,
-    SteadyState,
+    SteadySolution,
 };
 pub use trajectory::{run_trajectories, JumpRecord, TrajectoryOptions, TrajectoryResult};
 

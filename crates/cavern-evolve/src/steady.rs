@@ -231,7 +231,7 @@ pub struct FactorStats {
 
 /// A steady state and how it was obtained.
 #[derive(Clone, Debug, PartialEq)]
-pub struct SteadyState {
+pub struct SteadySolution {
     /// ρₛₛ, row-major d×d, Hermitian with trace 1.
     pub rho: Vec<C64>,
     /// ‖𝓛ρ‖_max, per time unit (see the module docs).
@@ -777,7 +777,7 @@ pub fn steady_state_direct(
     me: &MasterEquation,
     t_eval: f64,
     opts: &DirectOptions,
-) -> Result<SteadyState, SteadyError> {
+) -> Result<SteadySolution, SteadyError> {
     check_t_eval(t_eval)?;
     if !(opts.min_pivot_ratio >= 0.0 && opts.max_relative_residual > 0.0) {
         return Err(SteadyError::Options(format!(
@@ -820,7 +820,7 @@ pub fn steady_state_direct(
             tol: opts.max_relative_residual,
         });
     }
-    Ok(SteadyState {
+    Ok(SteadySolution {
         rho: x,
         residual,
         relative_residual,
@@ -923,7 +923,7 @@ pub fn steady_state_gmres(
     t_eval: f64,
     opts: &GmresOptions,
     guess: Option<&[C64]>,
-) -> Result<SteadyState, SteadyError> {
+) -> Result<SteadySolution, SteadyError> {
     check_t_eval(t_eval)?;
     if opts.restart == 0 || opts.max_iterations == 0 || !(opts.tol > 0.0 && opts.tol < 1.0) {
         return Err(SteadyError::Options(format!(
@@ -1117,7 +1117,7 @@ pub fn steady_state_gmres(
     }
     normalised?;
     let (residual, relative_residual) = checker.residual(&rho);
-    Ok(SteadyState {
+    Ok(SteadySolution {
         rho,
         residual,
         relative_residual,
@@ -1150,7 +1150,7 @@ pub fn steady_state_evolve(
     t_eval: f64,
     opts: &EvolutionOptions,
     rho0: Option<&[C64]>,
-) -> Result<SteadyState, SteadyError> {
+) -> Result<SteadySolution, SteadyError> {
     check_t_eval(t_eval)?;
     if !(opts.tol > 0.0 && opts.max_time > 0.0 && opts.max_time.is_finite()) {
         return Err(SteadyError::Options(format!(
@@ -1216,7 +1216,7 @@ pub fn steady_state_evolve(
         out: dy,
     };
     let (residual, relative_residual) = checker.residual(&rho);
-    Ok(SteadyState {
+    Ok(SteadySolution {
         rho,
         residual,
         relative_residual,
@@ -1245,7 +1245,7 @@ pub fn steady_state(
     me: &MasterEquation,
     t_eval: f64,
     opts: &SteadyOptions,
-) -> Result<SteadyState, SteadyError> {
+) -> Result<SteadySolution, SteadyError> {
     check_t_eval(t_eval)?;
     let d = me.space.dim();
     let n = d.saturating_mul(d);

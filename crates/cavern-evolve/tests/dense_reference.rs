@@ -14,7 +14,8 @@ use cavern_model::{
     CouplingForm, ModeInit, ModeParams, Network, ProductState, SiteParams, SpinInit, C64,
 };
 use common::{
-    dag, expm, eye, kron_all, lin, liouvillian, matvec, max_diff, mm, ops, opts, re, run,
+    expm, eye, hermitian_adjoint, kron_all, lin, liouvillian, matvec, max_diff, mm, ops, opts, re,
+    run,
 };
 
 const RTOL: f64 = 1e-10;
@@ -101,11 +102,11 @@ fn dipole_coupling_matches_exact_dense_propagation() {
 
     // dense operators on site ⊗ mode
     let a = kron_all(&[(eye(2), 2), (ops::a(levels), levels)]);
-    let ad = dag(&a, d);
+    let ad = hermitian_adjoint(&a, d);
     let sx = kron_all(&[(ops::sx(), 2), (eye(levels), levels)]);
     let sz = kron_all(&[(ops::sz(), 2), (eye(levels), levels)]);
     let sm = kron_all(&[(ops::sm(), 2), (eye(levels), levels)]);
-    let sp = dag(&sm, d);
+    let sp = hermitian_adjoint(&sm, d);
     let h_free = lin(&[(re(dc), &mm(&ad, &a, d)), (re(da / 2.0), &sz)]);
     let x = lin(&[(re(1.0), &a), (re(1.0), &ad)]);
     let h_dipole = lin(&[(re(1.0), &h_free), (re(g), &mm(&x, &sx, d))]);
@@ -164,9 +165,9 @@ fn full_network_matches_exact_dense_propagation() {
         kron_all(&f)
     };
     let a = kron_all(&[(eye(2), 2), (eye(2), 2), (ops::a(levels), levels)]);
-    let ad = dag(&a, d);
+    let ad = hermitian_adjoint(&a, d);
     let sm = [on_site(0, ops::sm()), on_site(1, ops::sm())];
-    let sp = [dag(&sm[0], d), dag(&sm[1], d)];
+    let sp = [hermitian_adjoint(&sm[0], d), hermitian_adjoint(&sm[1], d)];
     let sz = [on_site(0, ops::sz()), on_site(1, ops::sz())];
     let sx = [on_site(0, ops::sx()), on_site(1, ops::sx())];
     let x = lin(&[(re(1.0), &a), (re(1.0), &ad)]);

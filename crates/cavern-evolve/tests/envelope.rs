@@ -224,7 +224,7 @@ fn envelopes_on_drive_coupling_and_rabi_match_rk4_reference() {
     let i2 = common::eye(2);
     let il = common::eye(levels);
     let a = kron_all(&[(i2.clone(), 2), (ops::a(levels), levels)]);
-    let ad = common::dag(&a, 2 * levels);
+    let ad = common::hermitian_adjoint(&a, 2 * levels);
     let n_op = common::mm(&ad, &a, 2 * levels);
     let sz = kron_all(&[(ops::sz(), 2), (il.clone(), levels)]);
     let sx = kron_all(&[(ops::sx(), 2), (il.clone(), levels)]);

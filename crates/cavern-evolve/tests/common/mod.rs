@@ -153,7 +153,7 @@ pub fn mm(a: &[C64], b: &[C64], n: usize) -> Vec<C64> {
 }
 
 /// A†.
-pub fn dag(a: &[C64], n: usize) -> Vec<C64> {
+pub fn hermitian_adjoint(a: &[C64], n: usize) -> Vec<C64> {
     let mut out = vec![ZERO; n * n];
     for i in 0..n {
         for j in 0..n {
@@ -223,7 +223,7 @@ pub fn lindblad_dense(h: &[C64], jumps: &[Vec<C64>], rho: &[C64], d: usize) -> V
     let rh = mm(rho, h, d);
     let mut out = lin(&[(-I, &hr), (I, &rh)]);
     for l in jumps {
-        let ld = dag(l, d);
+        let ld = hermitian_adjoint(l, d);
         let ldl = mm(&ld, l, d);
         let lrl = mm(&mm(l, rho, d), &ld, d);
         let a = mm(&ldl, rho, d);
