@@ -179,7 +179,7 @@ impl LindbladRhs {
             )));
         }
         let mi = C64::new(0.0, -1.0);
-        let mut a0 = me.static_hamiltonian.scaled(mi);
+        let a0 = me.static_generator();
         let (mut diag_jumps, mut diag_jumps_complex) = (Vec::new(), Vec::new());
         let (mut shift_jumps, mut general_jumps) = (Vec::new(), Vec::new());
         for j in &me.jumps {
@@ -189,7 +189,6 @@ impl LindbladRhs {
                     j.channel.label()
                 )));
             }
-            a0 = a0.plus(&j.op.adjoint().times(&j.op).scaled(C64::new(-0.5, 0.0)));
             let mut src = vec![0u32; d];
             let mut val = vec![C64::new(0.0, 0.0); d];
             let mut has = vec![false; d];

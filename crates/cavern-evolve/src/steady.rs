@@ -441,15 +441,6 @@ fn check_t_eval(t_eval: f64) -> Result<(), SteadyError> {
     Ok(())
 }
 
-/// K = −iH − ½ Σ L†L of a static model.
-fn generator_k(me: &MasterEquation) -> SparseOp {
-    let mut k = me.static_hamiltonian.scaled(C64::new(0.0, -1.0));
-    for j in &me.jumps {
-        k = k.plus(&j.op.adjoint().times(&j.op).scaled(C64::new(-0.5, 0.0)));
-    }
-    k
-}
-
 fn row_sum_norm(op: &SparseOp) -> f64 {
     (0..op.dim())
         .map(|r| op.row(r).map(|(_, v)| v.norm()).sum::<f64>())
@@ -464,7 +455,7 @@ pub fn generator_scale(me: &MasterEquation, t_eval: f64) -> f64 {
 }
 
 fn scale_of(mf: &MasterEquation) -> f64 {
-    let k = generator_k(mf);
+    let k = mf.static_generator();
     2.0 * row_sum_norm(&k)
         + mf.jumps
             .iter()
@@ -475,7 +466,7 @@ fn scale_of(mf: &MasterEquation) -> f64 {
 /// Triplets (row, column, value) of 𝓛 on row-major vec(ρ), unsorted, with duplicates.
 fn liouvillian_triplets(mf: &MasterEquation) -> Vec<(usize, usize, C64)> {
     let d = mf.space.dim();
-    let k = generator_k(mf).triplets();
+    let k = mf.static_generator().triplets();
     let mut t = Vec::with_capacity(2 * d * k.len());
     // K ⊗ I: ((r, c), (i, c)) += K_ri
     for &(r, i, v) in &k {
@@ -551,7 +542,7 @@ fn liouvillian_diagonal(mf: &MasterEquation) -> Vec<C64> {
             .map(|r| op.row(r).find(|&(c, _)| c == r).map_or(ZERO, |(_, v)| v))
             .collect()
     };
-    let kd = diag_of(&generator_k(mf));
+    let kd = diag_of(&mf.static_generator());
     let jd: Vec<Vec<C64>> = mf.jumps.iter().map(|j| diag_of(&j.op)).collect();
     let mut out = vec![ZERO; d * d];
     for r in 0..d {

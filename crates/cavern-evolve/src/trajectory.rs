@@ -51,10 +51,7 @@ impl EffectiveRhs {
     /// Build from a master equation; `par` selects a parallel matrix-vector product for large d.
     pub fn new(me: &MasterEquation, par: Par) -> Self {
         let mi = C64::new(0.0, -1.0);
-        let mut a0 = me.static_hamiltonian.scaled(mi);
-        for j in &me.jumps {
-            a0 = a0.plus(&j.op.adjoint().times(&j.op).scaled(C64::new(-0.5, 0.0)));
-        }
+        let a0 = me.static_generator();
         let group = |envelope: Envelope, op: &SparseOp| {
             let (p, c, v) = op.raw();
             Group {

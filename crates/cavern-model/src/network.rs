@@ -530,6 +530,22 @@ fn describe_shape(m: &[Vec<f64>]) -> String {
 }
 
 impl MasterEquation {
+    /// The static part of the non-Hermitian generator, K₀ = −iH₀ − ½ Σₗ Lₗ†Lₗ (the evolution
+    /// between jumps of a trajectory, and the left factor of the Lindblad right-hand side
+    /// dρ/dt = Kρ + ρK† + Σ LρL†), built in one pass from all terms.
+    pub fn static_generator(&self) -> SparseOp {
+        let mut t: Vec<(usize, usize, C64)> = self
+            .static_hamiltonian
+            .triplets()
+            .into_iter()
+            .map(|(r, c, v)| (r, c, v * C64::new(0.0, -1.0)))
+            .collect();
+        for j in &self.jumps {
+            t.extend(j.op.adjoint().times(&j.op).scaled(real(-0.5)).triplets());
+        }
+        SparseOp::from_triplets(self.space.dim(), t)
+    }
+
     /// H(t) = H₀ + Σₖ fₖ(t) Hₖ as one sparse operator (allocates; for reports and tests).
     pub fn hamiltonian_at(&self, t: f64) -> SparseOp {
         let mut h = self.static_hamiltonian.clone();
