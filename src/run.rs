@@ -496,7 +496,61 @@ fn make_series(plan: &RunPlan, n_t: usize, method: Method) -> Vec<Series> {
     v
 }
 
-/// All observables of a normalised state vector, in series order (row-major rows).
+/// The state a sample is taken from: a density matrix or a normalised trajectory state vector.
+#[derive(Clone, Copy)]
+enum StateRef<'a> {
+    Rho(&'a [C64]),
+    Psi(&'a [C64]),
+}
+
+impl StateRef<'_> {
+    fn spin_z(self, space: &cavern_model::Space, i: usize) -> f64 {
+        match self {
+            StateRef::Rho(x) => obs::spin_z(space, x, i),
+            StateRef::Psi(x) => obs::state::spin_z(space, x, i),
+        }
+    }
+}
+
+/// Value of row `r` of the observable `name` (one of the names of [`make_series`]); `sz` holds
+/// ⟨σᶻ⟩ of every site for the pattern overlaps.
+fn observable(
+    plan: &RunPlan,
+    space: &cavern_model::Space,
+    st: StateRef,
+    sz: &[f64],
+    name: &str,
+    r: usize,
+) -> f64 {
+    use StateRef::{Psi, Rho};
+    let photons = |m| match st {
+        Rho(x) => obs::photon_number(space, x, m),
+        Psi(x) => obs::state::photon_number(space, x, m),
+    };
+    let field = |m| match st {
+        Rho(x) => obs::field(space, x, m),
+        Psi(x) => obs::state::field(space, x, m),
+    };
+    match (name, st) {
+        ("spin_z", _) => sz[r],
+        ("spin_x", Rho(x)) => obs::spin_x(space, x, r),
+        ("spin_x", Psi(x)) => obs::state::spin_x(space, x, r),
+        ("spin_y", Rho(x)) => obs::spin_y(space, x, r),
+        ("spin_y", Psi(x)) => obs::state::spin_y(space, x, r),
+        ("photon_number", _) => photons(r),
+        ("output_flux", _) => plan.units.flux(plan.network.modes[r].loss * photons(r)),
+        ("field_re", _) => field(r).re,
+        ("field_im", _) => field(r).im,
+        ("top_level_population", Rho(x)) => obs::top_level_population(space, x, r),
+        ("top_level_population", Psi(x)) => obs::state::top_level_population(space, x, r),
+        ("pattern_overlap", _) => obs::pattern_overlap(sz, &plan.observe.patterns[r]),
+        ("purity", Rho(x)) => obs::purity(x),
+        ("trace_error", Rho(x)) => obs::trace_error(space, x),
+        (other, _) => unreachable!("series {other} has no recorder for this kind of state"),
+    }
+}
+
+/// Observables of a normalised state vector, concatenated over `series` (rows in order).
 fn record_state(
     plan: &RunPlan,
     me: &MasterEquation,
@@ -504,26 +558,14 @@ fn record_state(
     psi: &[C64],
     out: &mut [f64],
 ) {
-    let space = &me.space;
-    let n = space.n_sites();
-    let sz: Vec<f64> = (0..n).map(|i| obs::state::spin_z(space, psi, i)).collect();
+    let st = StateRef::Psi(psi);
+    let sz: Vec<f64> = (0..me.space.n_sites())
+        .map(|i| st.spin_z(&me.space, i))
+        .collect();
     let mut k = 0;
     for s in series {
         for r in 0..s.n_rows() {
-            out[k] = match s.name.as_str() {
-                "spin_z" => sz[r],
-                "spin_x" => obs::state::spin_x(space, psi, r),
-                "spin_y" => obs::state::spin_y(space, psi, r),
-                "photon_number" => obs::state::photon_number(space, psi, r),
-                "output_flux" => plan
-                    .units
-                    .flux(plan.network.modes[r].loss * obs::state::photon_number(space, psi, r)),
-                "field_re" => obs::state::field(space, psi, r).re,
-                "field_im" => obs::state::field(space, psi, r).im,
-                "top_level_population" => obs::state::top_level_population(space, psi, r),
-                "pattern_overlap" => obs::pattern_overlap(&sz, &plan.observe.patterns[r]),
-                other => unreachable!("series {other} has no state-vector recorder"),
-            };
+            out[k] = observable(plan, &me.space, st, &sz, &s.name, r);
             k += 1;
         }
     }
@@ -536,31 +578,15 @@ fn record(
     series: &mut [Series],
     k: usize,
     n_t: usize,
-    rho: &[cavern_model::C64],
+    rho: &[C64],
 ) {
-    let space = &me.space;
-    let n = space.n_sites();
-    let sz: Vec<f64> = (0..n).map(|i| obs::spin_z(space, rho, i)).collect();
+    let st = StateRef::Rho(rho);
+    let sz: Vec<f64> = (0..me.space.n_sites())
+        .map(|i| st.spin_z(&me.space, i))
+        .collect();
     for s in series.iter_mut() {
-        let rows = s.n_rows();
-        for r in 0..rows {
-            let x = match s.name.as_str() {
-                "spin_z" => sz[r],
-                "spin_x" => obs::spin_x(space, rho, r),
-                "spin_y" => obs::spin_y(space, rho, r),
-                "photon_number" => obs::photon_number(space, rho, r),
-                "output_flux" => plan
-                    .units
-                    .flux(plan.network.modes[r].loss * obs::photon_number(space, rho, r)),
-                "field_re" => obs::field(space, rho, r).re,
-                "field_im" => obs::field(space, rho, r).im,
-                "top_level_population" => obs::top_level_population(space, rho, r),
-                "pattern_overlap" => obs::pattern_overlap(&sz, &plan.observe.patterns[r]),
-                "purity" => obs::purity(rho),
-                "trace_error" => obs::trace_error(space, rho),
-                other => unreachable!("series {other} has no recorder"),
-            };
-            s.data[r * n_t + k] = x;
+        for r in 0..s.n_rows() {
+            s.data[r * n_t + k] = observable(plan, &me.space, st, &sz, &s.name, r);
         }
     }
 }
