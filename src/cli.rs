@@ -1,7 +1,8 @@
 //! Command-line interface.
 
+use crate::budget::DetectorSettings;
 use crate::config::{self, Method, RunPlan};
-use crate::{output, report, run, AppError};
+use crate::{compare, h5in, output, plot, report, run, AppError};
 use clap::{Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use std::io::IsTerminal;
@@ -36,6 +37,128 @@ enum Command {
         #[arg(short, long)]
         quiet: bool,
     },
+    /// Compare results side by side: configs (run, or reused when a result with the same config
+    /// hash exists) or result files (`scan.h5@axis=value` picks a scan point); writes a Markdown
+    /// report, a CSV and figures into one folder.
+    Compare {
+        /// Two or more inputs: FILE.toml, FILE.h5 or SCAN.h5@axis=value[,axis=value].
+        #[arg(required = true, num_args = 2..)]
+        inputs: Vec<String>,
+        /// Output folder for report.md, summary.csv, figures and the results of configs run.
+        #[arg(short = 'o', long = "out-dir", default_value = "comparison")]
+        out_dir: PathBuf,
+        /// Skip the figures.
+        #[arg(long)]
+        no_figures: bool,
+        #[command(flatten)]
+        detector: DetectorArgs,
+        /// Print nothing but errors.
+        #[arg(short, long)]
+        quiet: bool,
+    },
+    /// Photon budget: expected counts per output and the integration time to tell each input's
+    /// outcome from the first's.
+    Budget {
+        /// One or more inputs: FILE.toml, FILE.h5 or SCAN.h5@axis=value.
+        #[arg(required = true)]
+        inputs: Vec<String>,
+        /// Folder for the results of configs that must be run.
+        #[arg(short = 'o', long = "out-dir", default_value = ".")]
+        out_dir: PathBuf,
+        #[command(flatten)]
+        detector: DetectorArgs,
+    },
+    /// Draw the figures of a result file as PNG and SVG.
+    Plot {
+        /// The HDF5 result file.
+        file: PathBuf,
+        /// Output folder (default: <file stem>-figures).
+        #[arg(short = 'o', long = "out-dir")]
+        out_dir: Option<PathBuf>,
+    },
+}
+
+/// Detector of the photon budget (see README, "Photon budget"); flags override the file.
+#[derive(clap::Args, Debug, Clone)]
+struct DetectorArgs {
+    /// Detection efficiency η, 0 < η ≤ 1 (dimensionless).
+    #[arg(long)]
+    efficiency: Option<f64>,
+    /// Dark-count rate per detector in counts/s (counts per time unit for dimensionless runs); default 0.
+    #[arg(long = "dark-rate")]
+    dark_rate: Option<f64>,
+    /// Integration window in s (time units for dimensionless runs); default 1.
+    #[arg(long)]
+    window: Option<f64>,
+    /// Confidence p: each error probability at most 1 − p; default 0.95.
+    #[arg(long)]
+    confidence: Option<f64>,
+    /// TOML file with a [detection] table (efficiency, dark_rate, window, confidence).
+    #[arg(long)]
+    detector: Option<PathBuf>,
+}
+
+impl DetectorArgs {
+    /// The detector, or `None` when nothing was given.
+    fn resolve(&self) -> Result<Option<crate::budget::Detector>, AppError> {
+        let flags = DetectorSettings {
+            efficiency: self.efficiency,
+            dark_rate: self.dark_rate,
+            window: self.window,
+            confidence: self.confidence,
+        };
+        let base = match &self.detector {
+            Some(p) => DetectorSettings::load(p).map_err(AppError::Input)?,
+            None => DetectorSettings::default(),
+        };
+        let all = base.overridden_by(flags);
+        if !all.any() {
+            return Ok(None);
+        }
+        all.resolve().map(Some).map_err(AppError::Input)
+    }
+}
+
+fn compare_cmd(req: compare::CompareRequest) -> Result<(), AppError> {
+    compare::compare(&req, &say)
+}
+
+fn budget_cmd(inputs: &[String], out_dir: &Path, det: &DetectorArgs) -> Result<(), AppError> {
+    let det = det.resolve()?.ok_or_else(|| {
+        AppError::Input("the photon budget needs at least --efficiency (or --detector FILE)".into())
+    })?;
+    let mut loaded = Vec::new();
+    for a in inputs {
+        loaded.push(compare::resolve(a, out_dir, &say)?);
+    }
+    let all: Vec<_> = loaded
+        .iter()
+        .map(|i| compare::metrics(&i.tree, i.point))
+        .collect();
+    let (outcomes, tu) = compare::budget_outcomes(&loaded, &all).map_err(AppError::Input)?;
+    say(&crate::budget::report(&det, &outcomes, &tu));
+    Ok(())
+}
+
+fn plot_cmd(file: &Path, out_dir: Option<PathBuf>) -> Result<(), AppError> {
+    let tree = h5in::read(file).map_err(|e| AppError::Input(e.to_string()))?;
+    let stem = file
+        .file_stem()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "cavern".into());
+    let dir = out_dir.unwrap_or_else(|| PathBuf::from(format!("{stem}-figures")));
+    std::fs::create_dir_all(&dir)
+        .map_err(|e| AppError::Runtime(format!("cannot create {}: {e}", dir.display())))?;
+    let files = plot::plot_file(&tree, &stem, &dir).map_err(AppError::Input)?;
+    say(&format!(
+        "wrote {} files to {}:\n",
+        files.len(),
+        dir.display()
+    ));
+    for n in plot::names(&files) {
+        say(&format!("  {n}\n"));
+    }
+    Ok(())
 }
 
 /// Write to standard output, ignoring a closed pipe (`cavern run … | head` must not panic; the
@@ -169,6 +292,27 @@ pub fn main() -> i32 {
             threads,
             quiet,
         } => run_cmd(&file, output, threads, quiet),
+        Command::Compare {
+            inputs,
+            out_dir,
+            no_figures,
+            detector,
+            quiet,
+        } => detector.resolve().and_then(|detector| {
+            compare_cmd(compare::CompareRequest {
+                inputs,
+                out_dir,
+                detector,
+                no_figures,
+                quiet,
+            })
+        }),
+        Command::Budget {
+            inputs,
+            out_dir,
+            detector,
+        } => budget_cmd(&inputs, &out_dir, &detector),
+        Command::Plot { file, out_dir } => plot_cmd(&file, out_dir),
     };
     match r {
         Ok(()) => 0,

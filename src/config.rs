@@ -457,7 +457,7 @@ fn line_of(text: &str, offset: usize) -> usize {
 }
 
 /// Turn a TOML/serde error into a located message with the dotted key and a suggestion.
-fn serde_error(path: &Path, text: &str, e: &toml::de::Error) -> ConfigError {
+pub(crate) fn serde_error(path: &Path, text: &str, e: &toml::de::Error) -> ConfigError {
     let line = e.span().map(|s| line_of(text, s.start));
     let mut message = e.message().trim().replace('\n', "; ");
     let key = line.map(|l| key_at_line(text, l)).unwrap_or_default();

@@ -364,6 +364,17 @@ pub enum H5Error {
         #[source]
         source: Box<dyn std::error::Error + Send + Sync + 'static>,
     },
+    /// Reading a file back ([`crate::h5in::read`]) failed: the file is missing or not HDF5, or
+    /// an object holds something the tree cannot represent.
+    #[error("cannot read HDF5 file {}: {object}: {reason}", path.display())]
+    Read {
+        /// The file read.
+        path: PathBuf,
+        /// HDF5 path of the offending object (`/` for the file itself).
+        object: String,
+        /// What is wrong.
+        reason: String,
+    },
 }
 
 /// Distinguishes temporary files of concurrent writes within one process.

@@ -1,11 +1,15 @@
 //! cavern application library: configuration, runs, reports and result files. The `cavern`
 //! binary is a thin wrapper around [`cli::main`].
 
+pub mod budget;
 pub mod cli;
 pub mod clicks;
+pub mod compare;
 pub mod config;
+pub mod h5in;
 pub mod h5out;
 pub mod output;
+pub mod plot;
 pub mod report;
 pub mod run;
 pub mod units;

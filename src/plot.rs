@@ -1,0 +1,955 @@
+//! Figures of result files, as PNG and SVG, drawn with `plotters` (pure Rust: bitmap and SVG
+//! backends; text through `ab_glyph` with the embedded DejaVu Sans of `assets/fonts`, licence in
+//! `assets/fonts/DejaVuSans-LICENSE.txt`).
+//!
+//! - [`plot_file`]: every figure of one result file — time traces of the observables (with ±1
+//!   standard-error bands for trajectory results, from the `*_stderr` datasets), scan results
+//!   (lines for one scan axis, heat maps for two), and the coupling matrix (`/memory/couplings`,
+//!   or `/model/zz` if a file has it).
+//! - [`lines`] and [`heat_map`]: the two figure kinds, also used by `cavern compare`.
+//!
+//! Style: 1600 × 1000 pixel PNGs (the SVGs have the same size in user units), 34–44 px text so it
+//! stays readable on a slide, line colours from the colour-blind-safe palette of Okabe & Ito,
+//! *Color Universal Design* (2008), heat maps in a five-point piecewise-linear approximation of
+//! the perceptually uniform "viridis" map (van der Walt & Smith, matplotlib, 2015) and signed
+//! matrices in a blue–white–vermillion diverging map built from two Okabe–Ito colours. Values
+//! spanning many decades get a power-of-ten factor in the axis label instead of long tick labels.
+
+use crate::h5out::{AttrValue, Data, Dataset, Group};
+use plotters::coord::Shift;
+use plotters::prelude::*;
+use std::path::{Path, PathBuf};
+
+/// Okabe–Ito palette (Okabe & Ito 2008), ordered for lines on white: blue, vermillion, bluish
+/// green, orange, reddish purple, sky blue, black, yellow.
+pub const OKABE_ITO: [RGBColor; 8] = [
+    RGBColor(0x00, 0x72, 0xB2),
+    RGBColor(0xD5, 0x5E, 0x00),
+    RGBColor(0x00, 0x9E, 0x73),
+    RGBColor(0xE6, 0x9F, 0x00),
+    RGBColor(0xCC, 0x79, 0xA7),
+    RGBColor(0x56, 0xB4, 0xE9),
+    RGBColor(0x00, 0x00, 0x00),
+    RGBColor(0xF0, 0xE4, 0x42),
+];
+
+/// Viridis at 0, ¼, ½, ¾, 1 (van der Walt & Smith 2015; the published end and quarter points).
+const VIRIDIS: [(u8, u8, u8); 5] = [
+    (0x44, 0x01, 0x54),
+    (0x3b, 0x52, 0x8b),
+    (0x21, 0x91, 0x8c),
+    (0x5e, 0xc9, 0x62),
+    (0xfd, 0xe7, 0x25),
+];
+
+const WIDTH: u32 = 1600;
+const HEIGHT: u32 = 1000;
+const FONT: &str = "sans-serif";
+const TITLE_PX: u32 = 44;
+const AXIS_PX: u32 = 40;
+const TICK_PX: u32 = 34;
+
+fn register_font() {
+    static ONCE: std::sync::Once = std::sync::Once::new();
+    ONCE.call_once(|| {
+        // The bytes are a valid TrueType font shipped with the source; a failure here is a
+        // packaging bug, and text then simply falls back to nothing rather than panicking.
+        let _ = plotters::style::register_font(
+            FONT,
+            FontStyle::Normal,
+            include_bytes!("../assets/fonts/DejaVuSans.ttf"),
+        );
+    });
+}
+
+/// One line of a line figure.
+#[derive(Clone, Debug)]
+pub struct Line {
+    /// Legend text.
+    pub label: String,
+    /// Abscissae.
+    pub x: Vec<f64>,
+    /// Ordinates (NaN points are skipped).
+    pub y: Vec<f64>,
+    /// Half-width of the error band (±1 standard error), if any.
+    pub err: Option<Vec<f64>>,
+}
+
+/// A line figure: title, axis labels (quantity and unit) and lines.
+#[derive(Clone, Debug)]
+pub struct LineFigure {
+    /// Caption above the plot.
+    pub title: String,
+    /// Abscissa label, e.g. `time t (µs)`.
+    pub x_label: String,
+    /// Quantity of the ordinate, e.g. `output flux κ⟨a†a⟩`.
+    pub y_quantity: String,
+    /// Unit of the ordinate as stored (e.g. `photons/s`); shown in parentheses, with a
+    /// power-of-ten factor when the values are very large or small.
+    pub y_unit: String,
+    /// The lines.
+    pub lines: Vec<Line>,
+}
+
+/// A heat map over a grid of (x, y) values.
+#[derive(Clone, Debug)]
+pub struct HeatMap {
+    /// Caption above the plot.
+    pub title: String,
+    /// Abscissa label.
+    pub x_label: String,
+    /// Ordinate label.
+    pub y_label: String,
+    /// Label of the colour bar (quantity and unit).
+    pub z_label: String,
+    /// Column coordinates (length nx); tick labels show these values.
+    pub x: Vec<f64>,
+    /// Row coordinates (length ny).
+    pub y: Vec<f64>,
+    /// Values `z[iy * nx + ix]`; NaN cells are drawn grey.
+    pub z: Vec<f64>,
+    /// Diverging colour map centred on zero (for signed matrices) instead of viridis.
+    pub diverging: bool,
+    /// Draw the matrix with row 0 at the top (matrices) instead of at the bottom (scans).
+    pub matrix: bool,
+}
+
+/// Files written for one figure (the PNG and the SVG).
+pub type Written = Vec<PathBuf>;
+
+fn err_text<E: std::fmt::Debug>(e: E) -> String {
+    format!("{e:?}")
+}
+
+/// Human-readable unit: `us` → `µs`, the dimensionless labels shortened.
+pub fn pretty_unit(u: &str) -> String {
+    if u.starts_with("1 (") || u == "1" || u.is_empty() {
+        "dimensionless".into()
+    } else {
+        u.replace("us", "µs")
+    }
+}
+
+/// Power-of-ten exponent k to divide values by so that ticks stay short (0 when not needed).
+fn scale_exponent(max_abs: f64) -> i32 {
+    if !(max_abs.is_finite()) || max_abs == 0.0 || (1e-2..1e4).contains(&max_abs) {
+        0
+    } else {
+        (max_abs.log10().floor() as i32 / 3) * 3
+    }
+}
+
+fn superscript(k: i32) -> String {
+    const D: [char; 10] = ['⁰', '¹', '²', '³', '⁴', '⁵', '⁶', '⁷', '⁸', '⁹'];
+    let mut s = String::new();
+    if k < 0 {
+        s.push('⁻');
+    }
+    for c in k.unsigned_abs().to_string().chars() {
+        s.push(D[c.to_digit(10).unwrap_or(0) as usize]);
+    }
+    s
+}
+
+/// Axis label `quantity (10ᵏ unit)` / `quantity (unit)`.
+fn axis_label(quantity: &str, unit: &str, k: i32) -> String {
+    let u = pretty_unit(unit);
+    if k == 0 {
+        format!("{quantity} ({u})")
+    } else if u == "dimensionless" {
+        format!("{quantity} (×10{})", superscript(k))
+    } else {
+        format!("{quantity} (10{} {u})", superscript(k))
+    }
+}
+
+fn tick(v: f64) -> String {
+    if v == 0.0 {
+        return "0".into();
+    }
+    let a = v.abs();
+    if (1e-3..1e5).contains(&a) {
+        let s = format!("{v:.4}");
+        let s = s.trim_end_matches('0').trim_end_matches('.');
+        if s == "-0" {
+            "0".into()
+        } else {
+            s.to_string()
+        }
+    } else {
+        format!("{v:.1e}")
+    }
+}
+
+fn padded_range(lo: f64, hi: f64) -> (f64, f64) {
+    if !(lo.is_finite() && hi.is_finite()) {
+        return (0.0, 1.0);
+    }
+    if hi - lo <= 1e-12 * (lo.abs() + hi.abs()).max(1e-300) {
+        let d = if lo == 0.0 { 1.0 } else { 0.1 * lo.abs() };
+        return (lo - d, hi + d);
+    }
+    let pad = 0.05 * (hi - lo);
+    (lo - pad, hi + pad)
+}
+
+/// Draw `fig` as `<stem>.png` and `<stem>.svg` in `dir`.
+///
+/// # Errors
+/// A message when there is nothing to draw or a backend fails.
+pub fn lines(fig: &LineFigure, dir: &Path, stem: &str) -> Result<Written, String> {
+    register_font();
+    let png = dir.join(format!("{stem}.png"));
+    let svg = dir.join(format!("{stem}.svg"));
+    draw_lines(
+        BitMapBackend::new(&png, (WIDTH, HEIGHT)).into_drawing_area(),
+        fig,
+    )
+    .map_err(|e| format!("{}: {e}", png.display()))?;
+    draw_lines(
+        SVGBackend::new(&svg, (WIDTH, HEIGHT)).into_drawing_area(),
+        fig,
+    )
+    .map_err(|e| format!("{}: {e}", svg.display()))?;
+    Ok(vec![png, svg])
+}
+
+fn draw_lines<DB: DrawingBackend>(
+    root: DrawingArea<DB, Shift>,
+    fig: &LineFigure,
+) -> Result<(), String> {
+    let finite = |v: &f64| v.is_finite();
+    let xs = fig
+        .lines
+        .iter()
+        .flat_map(|l| l.x.iter().copied())
+        .filter(finite);
+    let (x0, x1) = xs.fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+        (a.min(v), b.max(v))
+    });
+    let mut y_lo = f64::INFINITY;
+    let mut y_hi = f64::NEG_INFINITY;
+    for l in &fig.lines {
+        for (k, &y) in l.y.iter().enumerate() {
+            if !y.is_finite() {
+                continue;
+            }
+            let e = l
+                .err
+                .as_ref()
+                .and_then(|e| e.get(k))
+                .copied()
+                .filter(|e| e.is_finite())
+                .unwrap_or(0.0);
+            y_lo = y_lo.min(y - e);
+            y_hi = y_hi.max(y + e);
+        }
+    }
+    if !(x0.is_finite() && y_lo.is_finite()) {
+        return Err("no finite data to draw".into());
+    }
+    let k = scale_exponent(y_lo.abs().max(y_hi.abs()));
+    let f = 10f64.powi(-k);
+    let (y0, y1) = padded_range(y_lo * f, y_hi * f);
+    let (x0, x1) = if x1 > x0 {
+        (x0, x1)
+    } else {
+        padded_range(x0, x1)
+    };
+    root.fill(&WHITE).map_err(err_text)?;
+    let mut chart = ChartBuilder::on(&root)
+        .caption(&fig.title, (FONT, TITLE_PX))
+        .margin(28)
+        .margin_right(60)
+        .x_label_area_size(110)
+        .y_label_area_size(170)
+        .build_cartesian_2d(x0..x1, y0..y1)
+        .map_err(err_text)?;
+    chart
+        .configure_mesh()
+        .x_desc(&fig.x_label)
+        .y_desc(axis_label(&fig.y_quantity, &fig.y_unit, k))
+        .axis_desc_style((FONT, AXIS_PX))
+        .label_style((FONT, TICK_PX))
+        .x_labels(8)
+        .y_labels(8)
+        .x_label_formatter(&|v| tick(*v))
+        .y_label_formatter(&|v| tick(*v))
+        .light_line_style(WHITE)
+        .bold_line_style(RGBColor(0xDD, 0xDD, 0xDD))
+        .axis_style(BLACK.stroke_width(2))
+        .draw()
+        .map_err(err_text)?;
+    for (i, l) in fig.lines.iter().enumerate() {
+        let c = OKABE_ITO[i % OKABE_ITO.len()];
+        if let Some(err) = &l.err {
+            let pts: Vec<(f64, f64, f64)> =
+                l.x.iter()
+                    .zip(&l.y)
+                    .zip(err)
+                    .filter(|((x, y), e)| x.is_finite() && y.is_finite() && e.is_finite())
+                    .map(|((&x, &y), &e)| (x, y * f, e * f))
+                    .collect();
+            if pts.len() >= 2 {
+                let mut poly: Vec<(f64, f64)> = pts.iter().map(|&(x, y, e)| (x, y + e)).collect();
+                poly.extend(pts.iter().rev().map(|&(x, y, e)| (x, y - e)));
+                chart
+                    .draw_series(std::iter::once(Polygon::new(poly, c.mix(0.25).filled())))
+                    .map_err(err_text)?;
+            }
+        }
+        let pts: Vec<(f64, f64)> =
+            l.x.iter()
+                .zip(&l.y)
+                .filter(|(x, y)| x.is_finite() && y.is_finite())
+                .map(|(&x, &y)| (x, y * f))
+                .collect();
+        let style = c.stroke_width(4);
+        let series = if pts.len() == 1 {
+            chart.draw_series(pts.into_iter().map(|p| Circle::new(p, 8, c.filled())))
+        } else {
+            chart.draw_series(LineSeries::new(pts, style))
+        }
+        .map_err(err_text)?;
+        series
+            .label(&l.label)
+            .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 44, y)], c.stroke_width(6)));
+    }
+    if fig.lines.len() > 1 || !fig.lines.iter().all(|l| l.label.is_empty()) {
+        chart
+            .configure_series_labels()
+            .label_font((FONT, TICK_PX))
+            .background_style(WHITE.mix(0.85))
+            .border_style(RGBColor(0x99, 0x99, 0x99))
+            .position(SeriesLabelPosition::UpperRight)
+            .legend_area_size(64)
+            .margin(16)
+            .draw()
+            .map_err(err_text)?;
+    }
+    root.present().map_err(err_text)?;
+    Ok(())
+}
+
+fn viridis(t: f64) -> RGBColor {
+    let t = if t.is_finite() {
+        t.clamp(0.0, 1.0)
+    } else {
+        0.0
+    };
+    let s = t * 4.0;
+    let i = (s.floor() as usize).min(3);
+    let u = s - i as f64;
+    let (a, b) = (VIRIDIS[i], VIRIDIS[i + 1]);
+    let mix = |p: u8, q: u8| (f64::from(p) + u * (f64::from(q) - f64::from(p))).round() as u8;
+    RGBColor(mix(a.0, b.0), mix(a.1, b.1), mix(a.2, b.2))
+}
+
+/// Blue (Okabe–Ito #0072B2) at −1, white at 0, vermillion (#D55E00) at +1.
+fn diverging(t: f64) -> RGBColor {
+    let t = if t.is_finite() {
+        t.clamp(-1.0, 1.0)
+    } else {
+        0.0
+    };
+    let end = if t < 0.0 {
+        (0x00, 0x72, 0xB2)
+    } else {
+        (0xD5, 0x5E, 0x00)
+    };
+    let u = t.abs();
+    let mix = |w: u8| (255.0 + u * (f64::from(w) - 255.0)).round() as u8;
+    RGBColor(mix(end.0), mix(end.1), mix(end.2))
+}
+
+/// Cell edges around the centres `v` (midpoints; the outer edges mirrored).
+fn edges(v: &[f64]) -> Vec<f64> {
+    let n = v.len();
+    if n == 1 {
+        return vec![v[0] - 0.5, v[0] + 0.5];
+    }
+    let mut e = Vec::with_capacity(n + 1);
+    e.push(v[0] - 0.5 * (v[1] - v[0]));
+    for k in 0..n - 1 {
+        e.push(0.5 * (v[k] + v[k + 1]));
+    }
+    e.push(v[n - 1] + 0.5 * (v[n - 1] - v[n - 2]));
+    e
+}
+
+/// Draw `map` as `<stem>.png` and `<stem>.svg` in `dir`.
+///
+/// # Errors
+/// A message when the grid is inconsistent or a backend fails.
+pub fn heat_map(map: &HeatMap, dir: &Path, stem: &str) -> Result<Written, String> {
+    if map.x.is_empty() || map.y.is_empty() || map.z.len() != map.x.len() * map.y.len() {
+        return Err(format!(
+            "heat map {stem}: {} values for a {}×{} grid",
+            map.z.len(),
+            map.y.len(),
+            map.x.len()
+        ));
+    }
+    register_font();
+    let png = dir.join(format!("{stem}.png"));
+    let svg = dir.join(format!("{stem}.svg"));
+    draw_heat_map(
+        BitMapBackend::new(&png, (WIDTH, HEIGHT)).into_drawing_area(),
+        map,
+    )
+    .map_err(|e| format!("{}: {e}", png.display()))?;
+    draw_heat_map(
+        SVGBackend::new(&svg, (WIDTH, HEIGHT)).into_drawing_area(),
+        map,
+    )
+    .map_err(|e| format!("{}: {e}", svg.display()))?;
+    Ok(vec![png, svg])
+}
+
+fn draw_heat_map<DB: DrawingBackend>(
+    root: DrawingArea<DB, Shift>,
+    map: &HeatMap,
+) -> Result<(), String> {
+    let (nx, ny) = (map.x.len(), map.y.len());
+    let finite: Vec<f64> = map.z.iter().copied().filter(|v| v.is_finite()).collect();
+    let (mut lo, mut hi) = finite
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+            (a.min(v), b.max(v))
+        });
+    if !lo.is_finite() {
+        (lo, hi) = (0.0, 1.0);
+    }
+    if map.diverging {
+        let m = lo.abs().max(hi.abs()).max(1e-300);
+        (lo, hi) = (-m, m);
+    } else if hi <= lo {
+        (lo, hi) = padded_range(lo, hi);
+    }
+    let k = scale_exponent(lo.abs().max(hi.abs()));
+    let f = 10f64.powi(-k);
+    let colour = |v: f64| -> RGBColor {
+        if !v.is_finite() {
+            RGBColor(0xBB, 0xBB, 0xBB)
+        } else if map.diverging {
+            diverging(v / hi)
+        } else {
+            viridis((v - lo) / (hi - lo))
+        }
+    };
+    root.fill(&WHITE).map_err(err_text)?;
+    let root = root
+        .titled(&map.title, (FONT, TITLE_PX))
+        .map_err(err_text)?;
+    let (main, bar) = root.split_horizontally(WIDTH - 330);
+    // Uniform index coordinates when the values are not equally spaced would distort the grid;
+    // use the cell edges in value space (matrices use integer indices anyway).
+    let xe = edges(&map.x);
+    let ye = edges(&map.y);
+    let (ya, yb) = if map.matrix {
+        (ye[ny], ye[0])
+    } else {
+        (ye[0], ye[ny])
+    };
+    let mut chart = ChartBuilder::on(&main)
+        .margin(24)
+        .x_label_area_size(110)
+        .y_label_area_size(150)
+        .build_cartesian_2d(xe[0]..xe[nx], ya..yb)
+        .map_err(err_text)?;
+    let int_ticks = map.matrix;
+    let fmt = move |v: &f64| {
+        if int_ticks {
+            format!("{}", v.round() as i64)
+        } else {
+            tick(*v)
+        }
+    };
+    chart
+        .configure_mesh()
+        .disable_mesh()
+        .x_desc(&map.x_label)
+        .y_desc(&map.y_label)
+        .axis_desc_style((FONT, AXIS_PX))
+        .label_style((FONT, TICK_PX))
+        .x_labels(if map.matrix { nx.min(12) } else { 8 })
+        .y_labels(if map.matrix { ny.min(12) } else { 8 })
+        .x_label_formatter(&fmt)
+        .y_label_formatter(&fmt)
+        .axis_style(BLACK.stroke_width(2))
+        .draw()
+        .map_err(err_text)?;
+    chart
+        .draw_series((0..ny).flat_map(|iy| {
+            let (xe, ye) = (&xe, &ye);
+            (0..nx).map(move |ix| {
+                Rectangle::new(
+                    [(xe[ix], ye[iy]), (xe[ix + 1], ye[iy + 1])],
+                    colour(map.z[iy * nx + ix]).filled(),
+                )
+            })
+        }))
+        .map_err(err_text)?;
+    // colour bar
+    let mut cb = ChartBuilder::on(&bar)
+        .margin_top(24)
+        .margin_bottom(134)
+        .margin_right(10)
+        .y_label_area_size(150)
+        .build_cartesian_2d(0.0..1.0, lo * f..hi * f)
+        .map_err(err_text)?;
+    cb.configure_mesh()
+        .disable_mesh()
+        .disable_x_axis()
+        .y_desc(&map.z_label_scaled(k))
+        .axis_desc_style((FONT, AXIS_PX - 4))
+        .label_style((FONT, TICK_PX))
+        .y_labels(6)
+        .y_label_formatter(&|v| tick(*v))
+        .axis_style(BLACK.stroke_width(2))
+        .draw()
+        .map_err(err_text)?;
+    let steps = 200;
+    cb.draw_series((0..steps).map(|s| {
+        let a = lo + (hi - lo) * s as f64 / steps as f64;
+        let b = lo + (hi - lo) * (s + 1) as f64 / steps as f64;
+        Rectangle::new([(0.0, a * f), (1.0, b * f)], colour(0.5 * (a + b)).filled())
+    }))
+    .map_err(err_text)?;
+    root.present().map_err(err_text)?;
+    Ok(())
+}
+
+impl HeatMap {
+    fn z_label_scaled(&self, k: i32) -> String {
+        if k == 0 {
+            self.z_label.clone()
+        } else {
+            format!("{} ×10{}", self.z_label, superscript(-k))
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------------------------
+// Reading what to draw from a result tree
+
+/// Display name of an observable for axis labels.
+pub fn quantity_name(name: &str) -> String {
+    match name {
+        "pattern_overlap" => "pattern overlap m".into(),
+        "photon_number" => "photon number ⟨a†a⟩".into(),
+        "output_flux" => "output flux κ⟨a†a⟩".into(),
+        "spin_z" => "population ⟨σᶻ⟩".into(),
+        "spin_x" => "⟨σˣ⟩".into(),
+        "spin_y" => "⟨σʸ⟩".into(),
+        "purity" => "purity Tr ρ²".into(),
+        "field_re" => "Re ⟨a⟩".into(),
+        "field_im" => "Im ⟨a⟩".into(),
+        other => other.replace('_', " "),
+    }
+}
+
+/// Observables drawn as time traces, in this order (others are skipped to keep the figure set
+/// focused: fields and the truncation diagnostic are in the file).
+pub const TRACE_OBSERVABLES: [&str; 7] = [
+    "pattern_overlap",
+    "photon_number",
+    "output_flux",
+    "spin_z",
+    "spin_x",
+    "spin_y",
+    "purity",
+];
+
+/// A string attribute.
+pub fn attr_str<'a>(attrs: &'a [(String, AttrValue)], name: &str) -> Option<&'a str> {
+    attrs
+        .iter()
+        .find(|(n, _)| n == name)
+        .and_then(|(_, v)| match v {
+            AttrValue::Str(s) => Some(s.as_str()),
+            _ => None,
+        })
+}
+
+/// A list-of-strings attribute (a single string counts as a list of one).
+pub fn attr_strs(attrs: &[(String, AttrValue)], name: &str) -> Vec<String> {
+    match attrs.iter().find(|(n, _)| n == name).map(|(_, v)| v) {
+        Some(AttrValue::Strs(v)) => v.clone(),
+        Some(AttrValue::Str(s)) => vec![s.clone()],
+        _ => Vec::new(),
+    }
+}
+
+/// Numeric values of a dataset as f64 (integers converted).
+pub fn values(ds: &Dataset) -> Vec<f64> {
+    match &ds.data {
+        Data::F64(v) => v.clone(),
+        Data::I64(v) => v.iter().map(|&x| x as f64).collect(),
+        _ => Vec::new(),
+    }
+}
+
+/// Row labels of a dataset with `n` rows (its `rows` attribute, or `row0`, `row1`, …).
+pub fn row_labels(ds: &Dataset, n: usize) -> Vec<String> {
+    let r = attr_strs(&ds.attrs, "rows");
+    if r.len() == n {
+        r
+    } else {
+        (0..n).map(|i| format!("row{i}")).collect()
+    }
+}
+
+/// A time-trace observable of a single run: row labels, `[rows][time]` values and standard
+/// errors (trajectory results).
+pub struct Trace {
+    /// Observable name.
+    pub name: String,
+    /// Unit attribute.
+    pub unit: String,
+    /// Row labels (one entry `""` for single-row quantities).
+    pub rows: Vec<String>,
+    /// Values per row.
+    pub data: Vec<Vec<f64>>,
+    /// Standard errors per row, when stored.
+    pub stderr: Option<Vec<Vec<f64>>>,
+}
+
+/// Split a `[rows, time]` or `[time]` dataset into rows.
+fn split_rows(ds: &Dataset, n_t: usize) -> Option<Vec<Vec<f64>>> {
+    let v = values(ds);
+    if n_t == 0 || v.len() % n_t != 0 || v.is_empty() {
+        return None;
+    }
+    Some(v.chunks(n_t).map(<[f64]>::to_vec).collect())
+}
+
+/// The time trace `name` of a single-run tree, if present.
+pub fn trace(root: &Group, name: &str) -> Option<Trace> {
+    let n_t = root.get_dataset("time")?.data.len();
+    let obs = root.get_group("observables")?;
+    let ds = obs.get_dataset(name)?;
+    let data = split_rows(ds, n_t)?;
+    let rows = if ds.shape.len() <= 1 {
+        vec![String::new()]
+    } else {
+        row_labels(ds, data.len())
+    };
+    let stderr = obs
+        .get_dataset(&format!("{name}_stderr"))
+        .and_then(|e| split_rows(e, n_t))
+        .filter(|e| e.len() == data.len());
+    Some(Trace {
+        name: name.into(),
+        unit: attr_str(&ds.attrs, "units").unwrap_or("").to_string(),
+        rows,
+        data,
+        stderr,
+    })
+}
+
+/// `time t (µs)` from the `/time` dataset's units.
+pub fn time_label(root: &Group) -> String {
+    let u = root
+        .get_dataset("time")
+        .and_then(|t| attr_str(&t.attrs, "units"))
+        .unwrap_or("");
+    format!("time t ({})", pretty_unit(u))
+}
+
+/// The title of a result (its `title` attribute, else the file name).
+pub fn title_of(root: &Group, fallback: &str) -> String {
+    attr_str(root.attrs(), "title")
+        .unwrap_or(fallback)
+        .to_string()
+}
+
+/// A file-name-safe version of `s`.
+pub fn slug(s: &str) -> String {
+    let mut out: String = s
+        .chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || c == '-' || c == '_' {
+                c
+            } else {
+                '-'
+            }
+        })
+        .collect();
+    while out.contains("--") {
+        out = out.replace("--", "-");
+    }
+    out.trim_matches('-').to_string()
+}
+
+/// Every figure of one result tree into `dir` (PNG + SVG each); returns the files written.
+///
+/// # Errors
+/// A message naming the figure when drawing fails, or when the file has nothing to draw.
+pub fn plot_file(root: &Group, name: &str, dir: &Path) -> Result<Written, String> {
+    let mut out = Vec::new();
+    let title = title_of(root, name);
+    let is_scan = root.get_group("scan").is_some();
+    if !is_scan {
+        let t = root.get_dataset("time").map(values).unwrap_or_default();
+        for obs in TRACE_OBSERVABLES {
+            let Some(tr) = trace(root, obs) else { continue };
+            let ls = tr
+                .rows
+                .iter()
+                .enumerate()
+                .map(|(r, label)| Line {
+                    label: label.clone(),
+                    x: t.clone(),
+                    y: tr.data[r].clone(),
+                    err: tr.stderr.as_ref().map(|e| e[r].clone()),
+                })
+                .collect();
+            let band = if tr.stderr.is_some() {
+                ", band ±1 standard error"
+            } else {
+                ""
+            };
+            let fig = LineFigure {
+                title: format!("{}{band}", short(&title)),
+                x_label: time_label(root),
+                y_quantity: quantity_name(obs),
+                y_unit: tr.unit.clone(),
+                lines: ls,
+            };
+            out.extend(lines(&fig, dir, obs)?);
+        }
+    } else {
+        out.extend(plot_scan(root, &title, dir)?);
+    }
+    out.extend(plot_couplings(root, &title, dir)?);
+    if out.is_empty() {
+        return Err(format!(
+            "{name}: nothing to plot (no /observables, /scan or coupling matrix found)"
+        ));
+    }
+    Ok(out)
+}
+
+/// Shorten a long title for the caption.
+fn short(t: &str) -> String {
+    if t.chars().count() > 60 {
+        let s: String = t.chars().take(57).collect();
+        format!("{s}…")
+    } else {
+        t.to_string()
+    }
+}
+
+/// A scan axis: name, values, unit.
+pub struct Axis {
+    /// Axis name.
+    pub name: String,
+    /// Values along the axis.
+    pub values: Vec<f64>,
+    /// Unit attribute.
+    pub unit: String,
+}
+
+/// The scan axes of a scan tree (contract C3), in order.
+pub fn scan_axes(root: &Group) -> Vec<Axis> {
+    let Some(scan) = root.get_group("scan") else {
+        return Vec::new();
+    };
+    let axes_group = scan.get_group("axes");
+    attr_strs(scan.attrs(), "axes")
+        .into_iter()
+        .filter_map(|name| {
+            let ds = axes_group?.get_dataset(&name)?;
+            Some(Axis {
+                unit: attr_str(&ds.attrs, "units").unwrap_or("").to_string(),
+                values: values(ds),
+                name,
+            })
+        })
+        .collect()
+}
+
+/// Per-point values of a scan observable (contract C3): the steady state if stored
+/// (`/steady_state/observables/<name>`, shape `[axes…]` or `[axes…, rows]`), else the final time of
+/// `/observables/<name>` (`[axes…, time]` or `[axes…, rows, time]`). Failed points (`/scan/status`
+/// ≠ 0) are NaN. Returns (what, unit, row labels, values[point][row]), points in row-major axis
+/// order (first axis slowest).
+pub fn scan_values(
+    root: &Group,
+    name: &str,
+    n_axes: usize,
+) -> Option<(String, String, Vec<String>, Vec<Vec<f64>>)> {
+    let status = root
+        .get_group("scan")
+        .and_then(|s| s.get_dataset("status"))
+        .map(values);
+    let steady = root
+        .get_group("steady_state")
+        .and_then(|g| g.get_group("observables"))
+        .and_then(|g| g.get_dataset(name));
+    let (what, ds, timed) = match steady {
+        Some(ds) => ("steady state", ds, false),
+        None => (
+            "final time",
+            root.get_group("observables")?.get_dataset(name)?,
+            true,
+        ),
+    };
+    if ds.shape.len() < n_axes + usize::from(timed) {
+        return None;
+    }
+    let n_points: usize = ds.shape[..n_axes].iter().product();
+    let rest = &ds.shape[n_axes..];
+    let (n_t, row_dims) = if timed {
+        (rest[rest.len() - 1], &rest[..rest.len() - 1])
+    } else {
+        (1, rest)
+    };
+    let n_rows: usize = row_dims.iter().product();
+    let v = values(ds);
+    if n_t == 0 || n_points == 0 || v.len() != n_points * n_rows * n_t {
+        return None;
+    }
+    let per_point = n_rows * n_t;
+    let vals = (0..n_points)
+        .map(|p| {
+            let failed = status
+                .as_ref()
+                .and_then(|s| s.get(p))
+                .is_some_and(|&x| x != 0.0);
+            (0..n_rows)
+                .map(|r| {
+                    if failed {
+                        f64::NAN
+                    } else {
+                        v[p * per_point + r * n_t + n_t - 1]
+                    }
+                })
+                .collect()
+        })
+        .collect();
+    let rows = if row_dims.is_empty() {
+        vec![String::new()]
+    } else {
+        row_labels(ds, n_rows)
+    };
+    Some((
+        what.into(),
+        attr_str(&ds.attrs, "units").unwrap_or("").to_string(),
+        rows,
+        vals,
+    ))
+}
+
+fn plot_scan(root: &Group, title: &str, dir: &Path) -> Result<Written, String> {
+    let axes = scan_axes(root);
+    let mut out = Vec::new();
+    let n_points: usize = axes.iter().map(|a| a.values.len()).product();
+    if axes.is_empty() || n_points == 0 {
+        return Ok(out);
+    }
+    for obs in TRACE_OBSERVABLES {
+        let Some((what, unit, rows, vals)) = scan_values(root, obs, axes.len()) else {
+            continue;
+        };
+        if vals.len() != n_points {
+            continue;
+        }
+        if axes.len() == 1 {
+            let a = &axes[0];
+            let ls = rows
+                .iter()
+                .enumerate()
+                .map(|(r, label)| Line {
+                    label: label.clone(),
+                    x: a.values.clone(),
+                    y: vals.iter().map(|v| v[r]).collect(),
+                    err: None,
+                })
+                .collect();
+            let fig = LineFigure {
+                title: format!("{} — {what}", short(title)),
+                x_label: axis_label(&a.name, &a.unit, 0),
+                y_quantity: quantity_name(obs),
+                y_unit: unit.clone(),
+                lines: ls,
+            };
+            out.extend(lines(&fig, dir, &format!("scan-{obs}"))?);
+        } else if axes.len() == 2 {
+            let (ax, ay) = (&axes[1], &axes[0]);
+            for (r, label) in rows.iter().enumerate().take(8) {
+                // point index p = iy * n_x + ix (axis 0 slowest) matches z[iy * nx + ix]
+                let map = HeatMap {
+                    title: format!(
+                        "{}{} — {what}",
+                        quantity_name(obs),
+                        if label.is_empty() {
+                            String::new()
+                        } else {
+                            format!(", {label}")
+                        }
+                    ),
+                    x_label: axis_label(&ax.name, &ax.unit, 0),
+                    y_label: axis_label(&ay.name, &ay.unit, 0),
+                    z_label: format!("{} ({})", quantity_name(obs), pretty_unit(&unit)),
+                    x: ax.values.clone(),
+                    y: ay.values.clone(),
+                    z: vals.iter().map(|v| v[r]).collect(),
+                    diverging: false,
+                    matrix: false,
+                };
+                let stem = if label.is_empty() {
+                    format!("scan-{obs}")
+                } else {
+                    format!("scan-{obs}-{}", slug(label))
+                };
+                out.extend(heat_map(&map, dir, &stem)?);
+            }
+        }
+    }
+    Ok(out)
+}
+
+fn plot_couplings(root: &Group, title: &str, dir: &Path) -> Result<Written, String> {
+    let found = root
+        .get_group("memory")
+        .and_then(|m| m.get_dataset("couplings"))
+        .map(|d| (d, "coupling J_ij (learning rule)", "J_ij"))
+        .or_else(|| {
+            root.get_group("model")
+                .and_then(|m| m.get_dataset("zz"))
+                .map(|d| (d, "zz coupling J^z_ij/2π", "J^z_ij/2π"))
+        });
+    let Some((ds, what, z)) = found else {
+        return Ok(Vec::new());
+    };
+    if ds.shape.len() != 2 || ds.shape[0] != ds.shape[1] || ds.shape[0] == 0 {
+        return Ok(Vec::new());
+    }
+    let n = ds.shape[0];
+    let idx: Vec<f64> = (0..n).map(|i| i as f64).collect();
+    let map = HeatMap {
+        title: format!("{what} — {}", short(title)),
+        x_label: "site j".into(),
+        y_label: "site i".into(),
+        z_label: format!(
+            "{z} ({})",
+            pretty_unit(attr_str(&ds.attrs, "units").unwrap_or(""))
+        ),
+        x: idx.clone(),
+        y: idx,
+        z: values(ds),
+        diverging: true,
+        matrix: true,
+    };
+    heat_map(&map, dir, "couplings")
+}
+
+/// Where [`PathBuf`]s of written figures are listed in reports: file names only.
+pub fn names(files: &[PathBuf]) -> Vec<String> {
+    files
+        .iter()
+        .filter_map(|p| p.file_name().map(|n| n.to_string_lossy().into_owned()))
+        .collect()
+}
