@@ -100,8 +100,10 @@ pub struct HeatMap {
     pub x_label: String,
     /// Ordinate label.
     pub y_label: String,
-    /// Label of the colour bar (quantity and unit).
-    pub z_label: String,
+    /// Quantity shown by the colour (colour-bar label).
+    pub z_quantity: String,
+    /// Its unit as stored (a power-of-ten factor is added when needed).
+    pub z_unit: String,
     /// Column coordinates (length nx); tick labels show these values.
     pub x: Vec<f64>,
     /// Row coordinates (length ny).
@@ -163,21 +165,28 @@ fn axis_label(quantity: &str, unit: &str, k: i32) -> String {
     }
 }
 
-fn tick(v: f64) -> String {
-    if v == 0.0 {
+/// Tick label for an axis spanning `span`: as many decimals as the tick spacing needs (about a
+/// tenth of the span), so that rounding noise such as −2.2e−16 prints as 0.
+fn tick(v: f64, span: f64) -> String {
+    let span = if span.is_finite() && span > 0.0 { span } else { v.abs().max(1.0) };
+    if v.abs() < 1e-9 * span {
         return "0".into();
     }
-    let a = v.abs();
-    if (1e-3..1e5).contains(&a) {
-        let s = format!("{v:.4}");
-        let s = s.trim_end_matches('0').trim_end_matches('.');
-        if s == "-0" {
-            "0".into()
-        } else {
-            s.to_string()
-        }
+    let a = v.abs().max(span);
+    if !(1e-3..1e5).contains(&a) {
+        return format!("{v:.1e}");
+    }
+    let decimals = (1.0 - (span / 10.0).log10().floor()).clamp(0.0, 8.0) as usize;
+    let s = format!("{v:.decimals$}");
+    let s = if s.contains('.') {
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
     } else {
-        format!("{v:.1e}")
+        s
+    };
+    if s == "-0" {
+        "0".into()
+    } else {
+        s
     }
 }
 
@@ -273,8 +282,8 @@ fn draw_lines<DB: DrawingBackend>(
         .label_style((FONT, TICK_PX))
         .x_labels(8)
         .y_labels(8)
-        .x_label_formatter(&|v| tick(*v))
-        .y_label_formatter(&|v| tick(*v))
+        .x_label_formatter(&|v| tick(*v, x1 - x0))
+        .y_label_formatter(&|v| tick(*v, y1 - y0))
         .light_line_style(WHITE)
         .bold_line_style(RGBColor(0xDD, 0xDD, 0xDD))
         .axis_style(BLACK.stroke_width(2))
@@ -305,6 +314,12 @@ fn draw_lines<DB: DrawingBackend>(
                 .map(|(&x, &y)| (x, y * f))
                 .collect();
         let style = c.stroke_width(4);
+        if (2..=40).contains(&pts.len()) {
+            // few points (scans): mark the computed values
+            chart
+                .draw_series(pts.iter().map(|&p| Circle::new(p, 7, c.filled())))
+                .map_err(err_text)?;
+        }
         let series = if pts.len() == 1 {
             chart.draw_series(pts.into_iter().map(|p| Circle::new(p, 8, c.filled())))
         } else {
@@ -458,11 +473,19 @@ fn draw_heat_map<DB: DrawingBackend>(
         .build_cartesian_2d(xe[0]..xe[nx], ya..yb)
         .map_err(err_text)?;
     let int_ticks = map.matrix;
-    let fmt = move |v: &f64| {
+    let (xspan, yspan) = (xe[nx] - xe[0], (ye[ny] - ye[0]).abs());
+    let fmt_x = move |v: &f64| {
         if int_ticks {
             format!("{}", v.round() as i64)
         } else {
-            tick(*v)
+            tick(*v, xspan)
+        }
+    };
+    let fmt_y = move |v: &f64| {
+        if int_ticks {
+            format!("{}", v.round() as i64)
+        } else {
+            tick(*v, yspan)
         }
     };
     chart
@@ -474,8 +497,8 @@ fn draw_heat_map<DB: DrawingBackend>(
         .label_style((FONT, TICK_PX))
         .x_labels(if map.matrix { nx.min(12) } else { 8 })
         .y_labels(if map.matrix { ny.min(12) } else { 8 })
-        .x_label_formatter(&fmt)
-        .y_label_formatter(&fmt)
+        .x_label_formatter(&fmt_x)
+        .y_label_formatter(&fmt_y)
         .axis_style(BLACK.stroke_width(2))
         .draw()
         .map_err(err_text)?;
@@ -501,11 +524,11 @@ fn draw_heat_map<DB: DrawingBackend>(
     cb.configure_mesh()
         .disable_mesh()
         .disable_x_axis()
-        .y_desc(&map.z_label_scaled(k))
+        .y_desc(axis_label(&map.z_quantity, &map.z_unit, k))
         .axis_desc_style((FONT, AXIS_PX - 4))
         .label_style((FONT, TICK_PX))
         .y_labels(6)
-        .y_label_formatter(&|v| tick(*v))
+        .y_label_formatter(&|v| tick(*v, (hi - lo) * f))
         .axis_style(BLACK.stroke_width(2))
         .draw()
         .map_err(err_text)?;
@@ -520,16 +543,6 @@ fn draw_heat_map<DB: DrawingBackend>(
     Ok(())
 }
 
-impl HeatMap {
-    fn z_label_scaled(&self, k: i32) -> String {
-        if k == 0 {
-            self.z_label.clone()
-        } else {
-            format!("{} ×10{}", self.z_label, superscript(-k))
-        }
-    }
-}
-
 // ---------------------------------------------------------------------------------------------
 // Reading what to draw from a result tree
 
@@ -539,7 +552,7 @@ pub fn quantity_name(name: &str) -> String {
         "pattern_overlap" => "pattern overlap m".into(),
         "photon_number" => "photon number ⟨a†a⟩".into(),
         "output_flux" => "output flux κ⟨a†a⟩".into(),
-        "spin_z" => "population ⟨σᶻ⟩".into(),
+        "spin_z" => "inversion ⟨σᶻ⟩ = 2Pₑ − 1".into(),
         "spin_x" => "⟨σˣ⟩".into(),
         "spin_y" => "⟨σʸ⟩".into(),
         "purity" => "purity Tr ρ²".into(),
@@ -706,7 +719,7 @@ pub fn plot_file(root: &Group, name: &str, dir: &Path) -> Result<Written, String
                 })
                 .collect();
             let band = if tr.stderr.is_some() {
-                ", band ±1 standard error"
+                ", bands ±1 s.e."
             } else {
                 ""
             };
@@ -731,10 +744,11 @@ pub fn plot_file(root: &Group, name: &str, dir: &Path) -> Result<Written, String
     Ok(out)
 }
 
-/// Shorten a long title for the caption.
+/// Shorten a long title for the caption (about 45 characters fit beside the figure's other
+/// caption text at slide size).
 fn short(t: &str) -> String {
-    if t.chars().count() > 60 {
-        let s: String = t.chars().take(57).collect();
+    if t.chars().count() > 48 {
+        let s: String = t.chars().take(45).collect();
         format!("{s}…")
     } else {
         t.to_string()
@@ -892,7 +906,8 @@ fn plot_scan(root: &Group, title: &str, dir: &Path) -> Result<Written, String> {
                     ),
                     x_label: axis_label(&ax.name, &ax.unit, 0),
                     y_label: axis_label(&ay.name, &ay.unit, 0),
-                    z_label: format!("{} ({})", quantity_name(obs), pretty_unit(&unit)),
+                    z_quantity: quantity_name(obs),
+                    z_unit: unit.clone(),
                     x: ax.values.clone(),
                     y: ay.values.clone(),
                     z: vals.iter().map(|v| v[r]).collect(),
@@ -933,10 +948,8 @@ fn plot_couplings(root: &Group, title: &str, dir: &Path) -> Result<Written, Stri
         title: format!("{what} — {}", short(title)),
         x_label: "site j".into(),
         y_label: "site i".into(),
-        z_label: format!(
-            "{z} ({})",
-            pretty_unit(attr_str(&ds.attrs, "units").unwrap_or(""))
-        ),
+        z_quantity: z.into(),
+        z_unit: attr_str(&ds.attrs, "units").unwrap_or("").into(),
         x: idx.clone(),
         y: idx,
         z: values(ds),
