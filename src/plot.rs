@@ -8,8 +8,8 @@
 //!   or `/model/zz` if a file has it).
 //! - [`lines`] and [`heat_map`]: the two figure kinds, also used by `cavern compare`.
 //!
-//! Style: 1600 × 1000 pixel PNGs (the SVGs have the same size in user units), 34–44 px text so it
-//! stays readable on a slide, line colours from the colour-blind-safe palette of Okabe & Ito,
+//! Style: 1600 × 1000 pixel PNGs (the SVGs have the same size in user units), text 32–40 px high
+//! (plotters font sizes 40–50) so it stays readable on a slide, line colours from the colour-blind-safe palette of Okabe & Ito,
 //! *Color Universal Design* (2008), heat maps in a five-point piecewise-linear approximation of
 //! the perceptually uniform "viridis" map (van der Walt & Smith, matplotlib, 2015) and signed
 //! matrices in a blue–white–vermillion diverging map built from two Okabe–Ito colours. Values
@@ -45,9 +45,9 @@ const VIRIDIS: [(u8, u8, u8); 5] = [
 const WIDTH: u32 = 1600;
 const HEIGHT: u32 = 1000;
 const FONT: &str = "sans-serif";
-const TITLE_PX: u32 = 44;
-const AXIS_PX: u32 = 40;
-const TICK_PX: u32 = 34;
+const TITLE_PX: u32 = 50;
+const AXIS_PX: u32 = 46;
+const TICK_PX: u32 = 40;
 
 fn register_font() {
     static ONCE: std::sync::Once = std::sync::Once::new();
@@ -168,7 +168,11 @@ fn axis_label(quantity: &str, unit: &str, k: i32) -> String {
 /// Tick label for an axis spanning `span`: as many decimals as the tick spacing needs (about a
 /// tenth of the span), so that rounding noise such as −2.2e−16 prints as 0.
 fn tick(v: f64, span: f64) -> String {
-    let span = if span.is_finite() && span > 0.0 { span } else { v.abs().max(1.0) };
+    let span = if span.is_finite() && span > 0.0 {
+        span
+    } else {
+        v.abs().max(1.0)
+    };
     if v.abs() < 1e-9 * span {
         return "0".into();
     }
@@ -453,9 +457,13 @@ fn draw_heat_map<DB: DrawingBackend>(
         }
     };
     root.fill(&WHITE).map_err(err_text)?;
-    let root = root
-        .titled(&map.title, (FONT, TITLE_PX))
-        .map_err(err_text)?;
+    let root = root.margin(20, 0, 0, 0);
+    let title = if map.z.iter().any(|v| !v.is_finite()) {
+        format!("{} (grey: no value)", map.title)
+    } else {
+        map.title.clone()
+    };
+    let root = root.titled(&title, (FONT, TITLE_PX)).map_err(err_text)?;
     let (main, bar) = root.split_horizontally(WIDTH - 330);
     // Uniform index coordinates when the values are not equally spaced would distort the grid;
     // use the cell edges in value space (matrices use integer indices anyway).

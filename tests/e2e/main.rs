@@ -9,11 +9,18 @@
 //!   the truncation warning and output-path errors.
 //! - `scipy_reference` — a 2-spin + 1-mode run against an independent SciPy propagation.
 //! - `steady_state` — `[steady_state]`: analytic steady states, relaxation rates, non-uniqueness.
+//! - `compare` — `cavern compare`: zero differences against itself, the analytic changes when
+//!   the loss of an empty driven cavity doubles, the z-test, recall rows and scan points.
+//! - `budget` — the photon budget against a Poisson hand calculation and exact SciPy errors.
+//! - `plot` — `cavern plot` / compare figures are valid PNG and SVG files of sensible size.
 //! - `trajectories` — the quantum-trajectory solver: agreement with the density matrix,
 //!   antibunching, Poissonian counts, thread-count reproducibility, `auto`, the file layout.
 
+mod budget;
 mod check;
+mod compare;
 mod config_errors;
+mod plot;
 mod run_output;
 mod scipy_reference;
 mod steady_state;
