@@ -786,13 +786,13 @@ pub fn compare(req: &CompareRequest, say: &dyn Fn(&str)) -> Result<(), AppError>
     let all: Vec<Vec<Metric>> = inputs.iter().map(|i| metrics(&i.tree, i.point)).collect();
     let rows = rows(&all);
     let table = terminal_table(&inputs, &rows);
-    let budget_text = match &req.detector {
-        Some(det) => Some(match budget_outcomes(&inputs, &all) {
+    let budget_text = req
+        .detector
+        .as_ref()
+        .map(|det| match budget_outcomes(&inputs, &all) {
             Ok((outcomes, tu)) => budget::report(det, &outcomes, &tu),
             Err(e) => format!("Photon budget not computed: {e}.\n"),
-        }),
-        None => None,
-    };
+        });
     let figs = if req.no_figures {
         Vec::new()
     } else {

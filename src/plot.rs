@@ -639,7 +639,7 @@ pub struct Trace {
 /// Split a `[rows, time]` or `[time]` dataset into rows.
 fn split_rows(ds: &Dataset, n_t: usize) -> Option<Vec<Vec<f64>>> {
     let v = values(ds);
-    if n_t == 0 || v.len() % n_t != 0 || v.is_empty() {
+    if n_t == 0 || !v.len().is_multiple_of(n_t) || v.is_empty() {
         return None;
     }
     Some(v.chunks(n_t).map(<[f64]>::to_vec).collect())
@@ -792,16 +792,24 @@ pub fn scan_axes(root: &Group) -> Vec<Axis> {
         .collect()
 }
 
+/// Values of one observable over a scan grid, from [`scan_values`].
+pub struct ScanValues {
+    /// `steady state` or `final time`.
+    pub what: String,
+    /// Unit attribute.
+    pub unit: String,
+    /// Row labels (one empty label for single-row quantities).
+    pub rows: Vec<String>,
+    /// `values[point][row]`, points in row-major axis order.
+    pub values: Vec<Vec<f64>>,
+}
+
 /// Per-point values of a scan observable (contract C3): the steady state if stored
 /// (`/steady_state/observables/<name>`, shape `[axes…]` or `[axes…, rows]`), else the final time of
 /// `/observables/<name>` (`[axes…, time]` or `[axes…, rows, time]`). Failed points (`/scan/status`
-/// ≠ 0) are NaN. Returns (what, unit, row labels, values[point][row]), points in row-major axis
+/// ≠ 0) are NaN. Returns a [`ScanValues`] (values per point and row), points in row-major axis
 /// order (first axis slowest).
-pub fn scan_values(
-    root: &Group,
-    name: &str,
-    n_axes: usize,
-) -> Option<(String, String, Vec<String>, Vec<Vec<f64>>)> {
+pub fn scan_values(root: &Group, name: &str, n_axes: usize) -> Option<ScanValues> {
     let status = root
         .get_group("scan")
         .and_then(|s| s.get_dataset("status"))
@@ -856,12 +864,12 @@ pub fn scan_values(
     } else {
         row_labels(ds, n_rows)
     };
-    Some((
-        what.into(),
-        attr_str(&ds.attrs, "units").unwrap_or("").to_string(),
+    Some(ScanValues {
+        what: what.into(),
+        unit: attr_str(&ds.attrs, "units").unwrap_or("").to_string(),
         rows,
-        vals,
-    ))
+        values: vals,
+    })
 }
 
 fn plot_scan(root: &Group, title: &str, dir: &Path) -> Result<Written, String> {
@@ -872,7 +880,13 @@ fn plot_scan(root: &Group, title: &str, dir: &Path) -> Result<Written, String> {
         return Ok(out);
     }
     for obs in TRACE_OBSERVABLES {
-        let Some((what, unit, rows, vals)) = scan_values(root, obs, axes.len()) else {
+        let Some(ScanValues {
+            what,
+            unit,
+            rows,
+            values: vals,
+        }) = scan_values(root, obs, axes.len())
+        else {
             continue;
         };
         if vals.len() != n_points {
