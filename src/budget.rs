@@ -367,9 +367,21 @@ pub fn report(det: &Detector, outcomes: &[Outcome], time_unit: &str) -> String {
         let rb: Vec<f64> = o.flux.iter().map(|&f| det.rate(f)).collect();
         match discriminate(&ra, &rb, det.confidence) {
             Ok(d) => {
+                // counts of the dimmest informative detector at T_needed
+                let fewest = ra
+                    .iter()
+                    .zip(&rb)
+                    .filter(|(a, b)| a != b)
+                    .map(|(a, b)| a.min(*b) * d.time)
+                    .fold(f64::INFINITY, f64::min);
+                let caveat = if fewest < 10.0 {
+                    " (fewer than 10 expected counts: the normal approximation is rough)"
+                } else {
+                    ""
+                };
                 let _ = writeln!(
                     s,
-                    "| {} | {} | {} | {:.4} | {} | {} |",
+                    "| {} | {} | {} | {:.4} | {}{caveat} | {} |",
                     first.label,
                     o.label,
                     num(d.separation),
