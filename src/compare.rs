@@ -871,3 +871,96 @@ fn markdown_report(
     }
     s
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::h5out::Data;
+
+    /// A two-axis scan (2 × 3 points) with a timed two-row observable and its standard error.
+    fn scan_tree() -> Group {
+        let mut root = Group::new();
+        let s = root.group("scan");
+        s.attr("axes", vec!["a".to_string(), "b".to_string()]);
+        let axes = s.group("axes");
+        axes.dataset("a", &[2], Data::F64(vec![1.0, 2.0]));
+        axes.dataset("b", &[3], Data::F64(vec![10.0, 20.0, 30.0]));
+        // value at point (i, j), row r, time k = 100 i + 10 j + r + 0.1 k
+        let mut v = Vec::new();
+        let mut e = Vec::new();
+        for i in 0..2 {
+            for j in 0..3 {
+                for r in 0..2 {
+                    for k in 0..4 {
+                        v.push(f64::from(100 * i + 10 * j + r) + 0.1 * f64::from(k));
+                        e.push(0.01 * f64::from(r + 1));
+                    }
+                }
+            }
+        }
+        let obs = root.group("observables");
+        obs.dataset("photon_number", &[2, 3, 2, 4], Data::F64(v))
+            .attr("units", "photons")
+            .attr("rows", vec!["m0".to_string(), "m1".to_string()]);
+        obs.dataset("photon_number_stderr", &[2, 3, 2, 4], Data::F64(e))
+            .attr("units", "photons");
+        root
+    }
+
+    #[test]
+    fn scan_point_metrics_take_the_final_sample_of_the_selected_point() {
+        let root = scan_tree();
+        let (p, desc) = select_point(&root, Path::new("s.h5"), "a=2.2,b=19").unwrap();
+        assert_eq!((p, desc.as_str()), (4, "a=2,b=20"));
+        let m = metrics(&root, Some(p));
+        assert_eq!(m.len(), 2);
+        assert_eq!(
+            (m[0].row.as_str(), m[0].when.as_str()),
+            ("m0", "final time")
+        );
+        assert!((m[0].value - 110.3).abs() < 1e-12, "{m:?}");
+        assert!((m[1].value - 111.3).abs() < 1e-12);
+        assert_eq!(m[1].stderr, Some(0.02));
+        assert!(select_point(&root, Path::new("s.h5"), "c=1").is_err());
+        assert!(select_point(&root, Path::new("s.h5"), "a").is_err());
+    }
+
+    #[test]
+    fn deltas_ratios_and_z() {
+        let m = |v: f64, e: Option<f64>, unit: &str| Metric {
+            quantity: "q".into(),
+            when: String::new(),
+            row: String::new(),
+            unit: unit.into(),
+            value: v,
+            stderr: e,
+        };
+        let r = Row {
+            quantity: "q".into(),
+            when: String::new(),
+            row: String::new(),
+            unit: "1".into(),
+            cells: vec![
+                Some(m(4.0, Some(0.3), "1")),
+                Some(m(5.0, Some(0.4), "1")),
+                Some(m(5.0, None, "1")),
+                Some(m(5.0, None, "photons")),
+                None,
+            ],
+        };
+        let d = r.delta(1).unwrap();
+        assert_eq!((d.difference, d.ratio), (1.0, 1.25));
+        assert!((d.z.unwrap() - 2.0).abs() < 1e-12 && d.significant() == Some(true));
+        // one standard error only: it alone is the combined error
+        assert!((r.delta(2).unwrap().z.unwrap() - 1.0 / 0.3).abs() < 1e-12);
+        assert!(r.delta(3).is_none(), "units differ");
+        assert!(r.delta(4).is_none(), "missing");
+        let exact = Row {
+            cells: vec![Some(m(0.0, None, "1")), Some(m(0.0, None, "1"))],
+            ..r.clone()
+        };
+        let d = exact.delta(1).unwrap();
+        assert_eq!((d.difference, d.z), (0.0, None));
+        assert!(d.ratio.is_nan());
+    }
+}

@@ -137,7 +137,7 @@ fn scale_exponent(max_abs: f64) -> i32 {
     if !(max_abs.is_finite()) || max_abs == 0.0 || (1e-2..1e4).contains(&max_abs) {
         0
     } else {
-        (max_abs.log10().floor() as i32 / 3) * 3
+        (max_abs.log10().floor() as i32).div_euclid(3) * 3
     }
 }
 
@@ -987,4 +987,34 @@ pub fn names(files: &[PathBuf]) -> Vec<String> {
         .iter()
         .filter_map(|p| p.file_name().map(|n| n.to_string_lossy().into_owned()))
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn tick_labels_and_scaling() {
+        assert_eq!(tick(-2.2e-16, 1.4), "0");
+        assert_eq!(tick(0.30000000000000004, 1.0), "0.3");
+        assert_eq!(tick(1.5, 3.0), "1.5");
+        assert_eq!(tick(250.0, 1000.0), "250");
+        assert_eq!(scale_exponent(2.3e6), 6);
+        assert_eq!(scale_exponent(0.5), 0);
+        assert_eq!(scale_exponent(3e-5), -6);
+        assert_eq!(axis_label("flux", "photons/s", 6), "flux (10⁶ photons/s)");
+        assert_eq!(axis_label("m", "1", 0), "m (dimensionless)");
+        assert_eq!(pretty_unit("us"), "µs");
+    }
+
+    #[test]
+    fn colour_maps_hit_their_anchors() {
+        assert_eq!(viridis(0.0), RGBColor(0x44, 0x01, 0x54));
+        assert_eq!(viridis(0.5), RGBColor(0x21, 0x91, 0x8c));
+        assert_eq!(viridis(1.0), RGBColor(0xfd, 0xe7, 0x25));
+        assert_eq!(diverging(0.0), RGBColor(255, 255, 255));
+        assert_eq!(diverging(-1.0), OKABE_ITO[0]);
+        assert_eq!(diverging(1.0), OKABE_ITO[1]);
+        assert_eq!(edges(&[1.0, 2.0, 4.0]), vec![0.5, 1.5, 3.0, 5.0]);
+    }
 }
