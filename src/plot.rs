@@ -2,7 +2,8 @@
 //! backends; text through `ab_glyph` with the embedded DejaVu Sans of `assets/fonts`, licence in
 //! `assets/fonts/DejaVuSans-LICENSE.txt`).
 //!
-//! - [`plot_file`]: every figure of one result file — time traces of the observables (with ±1
+//! - [`plot_file`]: every figure of one result file — recall success against flipped sites
+//!   (`/recall`, contract C2), time traces of the observables (with ±1
 //!   standard-error bands for trajectory results, from the `*_stderr` datasets), scan results
 //!   (lines for one scan axis, heat maps for two), and the coupling matrix (`/memory/couplings`,
 //!   or `/model/zz` if a file has it).
@@ -269,6 +270,15 @@ fn draw_lines<DB: DrawingBackend>(
     } else {
         padded_range(x0, x1)
     };
+    // integer abscissae (numbers of flipped sites): one tick per integer
+    let integer_x = fig
+        .lines
+        .iter()
+        .flat_map(|l| l.x.iter())
+        .all(|x| x.fract() == 0.0)
+        && x1 - x0 <= 20.0;
+    let x_ticks = if integer_x { (x1 - x0) as usize + 1 } else { 8 };
+    let legend_at = legend_corner(fig, (x0, x1), (y0, y1), f);
     root.fill(&WHITE).map_err(err_text)?;
     let mut chart = ChartBuilder::on(&root)
         .caption(&fig.title, (FONT, TITLE_PX))
@@ -284,7 +294,7 @@ fn draw_lines<DB: DrawingBackend>(
         .y_desc(axis_label(&fig.y_quantity, &fig.y_unit, k))
         .axis_desc_style((FONT, AXIS_PX))
         .label_style((FONT, TICK_PX))
-        .x_labels(8)
+        .x_labels(x_ticks)
         .y_labels(8)
         .x_label_formatter(&|v| tick(*v, x1 - x0))
         .y_label_formatter(&|v| tick(*v, y1 - y0))
@@ -340,7 +350,7 @@ fn draw_lines<DB: DrawingBackend>(
             .label_font((FONT, TICK_PX))
             .background_style(WHITE.mix(0.85))
             .border_style(RGBColor(0x99, 0x99, 0x99))
-            .position(SeriesLabelPosition::UpperRight)
+            .position(legend_at)
             .legend_area_size(64)
             .margin(16)
             .draw()
@@ -348,6 +358,63 @@ fn draw_lines<DB: DrawingBackend>(
     }
     root.present().map_err(err_text)?;
     Ok(())
+}
+
+/// The corner of the plot area with the fewest data points (legend placement): each corner box
+/// covers 40 % of the width and 30 % of the height; ties prefer upper right.
+fn legend_corner(fig: &LineFigure, x: (f64, f64), y: (f64, f64), f: f64) -> SeriesLabelPosition {
+    let corners = [
+        (SeriesLabelPosition::UpperRight, true, true),
+        (SeriesLabelPosition::UpperLeft, false, true),
+        (SeriesLabelPosition::LowerRight, true, false),
+        (SeriesLabelPosition::LowerLeft, false, false),
+    ];
+    let (w, h) = (x.1 - x.0, y.1 - y.0);
+    let inside = |px: f64, py: f64, right: bool, upper: bool| {
+        let in_x = if right {
+            px >= x.1 - 0.4 * w
+        } else {
+            px <= x.0 + 0.4 * w
+        };
+        let in_y = if upper {
+            py >= y.1 - 0.3 * h
+        } else {
+            py <= y.0 + 0.3 * h
+        };
+        in_x && in_y
+    };
+    let count = |right: bool, upper: bool| {
+        fig.lines
+            .iter()
+            .flat_map(|l| {
+                l.x.iter()
+                    .zip(&l.y)
+                    .enumerate()
+                    .map(move |(k, (&px, &py))| {
+                        let e = l
+                            .err
+                            .as_ref()
+                            .and_then(|e| e.get(k))
+                            .copied()
+                            .unwrap_or(0.0);
+                        (px, py * f, e * f)
+                    })
+            })
+            .filter(|&(px, py, e)| {
+                inside(px, py, right, upper)
+                    || (e.is_finite()
+                        && (inside(px, py + e, right, upper) || inside(px, py - e, right, upper)))
+            })
+            .count()
+    };
+    let mut best = (usize::MAX, SeriesLabelPosition::UpperRight);
+    for (pos, right, upper) in corners {
+        let n = count(right, upper);
+        if n < best.0 {
+            best = (n, pos);
+        }
+    }
+    best.1
 }
 
 fn viridis(t: f64) -> RGBColor {
@@ -743,6 +810,9 @@ pub fn plot_file(root: &Group, name: &str, dir: &Path) -> Result<Written, String
     } else {
         out.extend(plot_scan(root, &title, dir)?);
     }
+    if let Some(fig) = recall_figure(root, &title) {
+        out.extend(lines(&fig, dir, "recall")?);
+    }
     out.extend(plot_couplings(root, &title, dir)?);
     if out.is_empty() {
         return Err(format!(
@@ -946,6 +1016,42 @@ fn plot_scan(root: &Group, title: &str, dir: &Path) -> Result<Written, String> {
         }
     }
     Ok(out)
+}
+
+/// Recall success against the number of flipped sites (`/recall`, contract C2): the quantum
+/// network with its ±1 standard-error band, and the classical baselines on the same couplings.
+pub fn recall_figure(root: &Group, title: &str) -> Option<LineFigure> {
+    let rec = root.get_group("recall")?;
+    let flips = values(rec.get_dataset("flips")?);
+    let mut ls = vec![Line {
+        label: "quantum network".into(),
+        x: flips.clone(),
+        y: values(rec.get_dataset("success")?),
+        err: rec.get_dataset("success_stderr").map(values),
+    }];
+    for (name, label) in [
+        ("baseline_descent_success", "classical descent (T = 0)"),
+        ("baseline_glauber_success", "classical Glauber"),
+    ] {
+        if let Some(d) = rec.get_dataset(name) {
+            ls.push(Line {
+                label: label.into(),
+                x: flips.clone(),
+                y: values(d),
+                err: None,
+            });
+        }
+    }
+    if ls.iter().any(|l| l.y.len() != flips.len()) || flips.is_empty() {
+        return None;
+    }
+    Some(LineFigure {
+        title: format!("recall — {}", short(title)),
+        x_label: "flipped sites in the probe".into(),
+        y_quantity: "recall success".into(),
+        y_unit: "fraction of probes".into(),
+        lines: ls,
+    })
 }
 
 fn plot_couplings(root: &Group, title: &str, dir: &Path) -> Result<Written, String> {

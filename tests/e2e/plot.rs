@@ -180,6 +180,29 @@ fn trajectory_bands_scans_and_coupling_matrix() {
     assert_png(&sb.join("s1/scan-photon_number.png"));
     assert!(assert_svg(&sb.join("s1/scan-photon_number.svg")).contains("loss (MHz)"));
 
+    // contract C2: recall success against flipped sites, with the classical baselines
+    let mut root = Group::new();
+    let r = root.group("recall");
+    r.dataset("flips", &[3], Data::I64(vec![0, 1, 2]));
+    r.dataset("success", &[3], Data::F64(vec![1.0, 0.8, 0.4]));
+    r.dataset("success_stderr", &[3], Data::F64(vec![0.0, 0.06, 0.08]));
+    r.dataset(
+        "baseline_descent_success",
+        &[3],
+        Data::F64(vec![1.0, 1.0, 0.5]),
+    );
+    r.dataset(
+        "baseline_glauber_success",
+        &[3],
+        Data::F64(vec![1.0, 0.7, 0.3]),
+    );
+    write_atomic(&root, &sb.join("recall.h5")).expect("write");
+    let out = sb.cavern(["plot", "recall.h5", "-o", "rc"]);
+    out.assert_success();
+    assert_png(&sb.join("rc/recall.png"));
+    let svg = assert_svg(&sb.join("rc/recall.svg"));
+    assert!(svg.contains("classical Glauber") && svg.contains("flipped sites in the probe"));
+
     // nothing to draw, and not a result file: clear errors, exit 2
     write_atomic(&Group::new(), &sb.join("empty.h5")).expect("write");
     let out = sb.cavern(["plot", "empty.h5"]);
