@@ -8,6 +8,7 @@ pub mod h5out;
 pub mod output;
 pub mod report;
 pub mod run;
+pub mod scan;
 pub mod units;
 
 /// An application failure, classified by exit code.
