@@ -446,10 +446,13 @@ pub fn merge(a: MergeArgs) -> Result<usize, AppError> {
             )));
         }
     }
-    let sc = Scan::parse(Path::new(&h0.config_path), &h0.config_text)
+    let mut sc = Scan::parse(Path::new(&h0.config_abs), &h0.config_text)
         .map_err(|e| AppError::Input(format!("the config stored in the journals: {e}")))?
         .ok_or_else(|| AppError::Input("the config stored in the journals has no [scan]".into()))?;
     let sv = exec::survey(&sc, false)?;
+    // the result file names the config as the shards were given it, like a single-machine run
+    sc.path = PathBuf::from(&h0.config_path);
+    sc.base.path = sc.path.clone();
     let mut records: BTreeMap<u64, &journal::PointRecord> = BTreeMap::new();
     let mut from: BTreeMap<u64, &Path> = BTreeMap::new();
     let mut duplicates = Vec::new();

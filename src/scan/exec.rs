@@ -530,7 +530,8 @@ fn open_journal(
         None => {
             let header = Header {
                 config_hash: scan.hash.clone(),
-                config_path: std::fs::canonicalize(&scan.path)
+                config_path: scan.path.display().to_string(),
+                config_abs: std::fs::canonicalize(&scan.path)
                     .unwrap_or_else(|_| scan.path.clone())
                     .display()
                     .to_string(),

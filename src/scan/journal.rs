@@ -22,8 +22,10 @@ pub const VERSION: u32 = 1;
 pub struct Header {
     /// Hex SHA-256 of the config text.
     pub config_hash: String,
-    /// The config file (absolute when it could be made so).
+    /// The config file as given on the command line (written into the result file).
     pub config_path: String,
+    /// The config file's absolute path (to read files it refers to when merging elsewhere).
+    pub config_abs: String,
     /// The config text.
     pub config_text: String,
     /// Points of the whole scan.
@@ -128,6 +130,7 @@ impl Header {
         e.u64(u64::from(VERSION));
         e.str(&self.config_hash);
         e.str(&self.config_path);
+        e.str(&self.config_abs);
         e.str(&self.config_text);
         e.u64(self.n_points);
         e.u64(self.shard.0);
@@ -143,6 +146,7 @@ impl Header {
         Some(Header {
             config_hash: d.str()?,
             config_path: d.str()?,
+            config_abs: d.str()?,
             config_text: d.str()?,
             n_points: d.u64()?,
             shard: (d.u64()?, d.u64()?),
@@ -422,7 +426,8 @@ mod tests {
         let path = dir.path().join("j");
         let header = Header {
             config_hash: "ab".into(),
-            config_path: "/x.toml".into(),
+            config_path: "x.toml".into(),
+            config_abs: "/x.toml".into(),
             config_text: "[scan]".into(),
             n_points: 3,
             shard: (1, 1),

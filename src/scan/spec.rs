@@ -249,9 +249,11 @@ fn walk<'a>(root: &'a Item, segs: &[Segment]) -> Result<Option<&'a Item>, String
         match table.get(&seg.key) {
             Some(it) => cur = it,
             None if k + 1 == segs.len() && seg.index.is_empty() => return Ok(None),
-            None => return Err(format!(
+            None => {
+                return Err(format!(
                 "the config has no `{at}`; write it into the config (any value) to scan inside it"
-            )),
+            ))
+            }
         }
         for &i in &seg.index {
             at.push_str(&format!("[{i}]"));

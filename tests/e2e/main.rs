@@ -9,12 +9,16 @@
 //!   the truncation warning and output-path errors.
 //! - `scipy_reference` — a 2-spin + 1-mode run against an independent SciPy propagation.
 //! - `steady_state` — `[steady_state]`: analytic steady states, relaxation rates, non-uniqueness.
+//! - `scan`, `scan_slurm` — parameter scans: output layout, kill -9 and resume, shards and merge,
+//!   and a SLURM job array on a local cluster (run only when `.ci/run` started one).
 //! - `trajectories` — the quantum-trajectory solver: agreement with the density matrix,
 //!   antibunching, Poissonian counts, thread-count reproducibility, `auto`, the file layout.
 
 mod check;
 mod config_errors;
 mod run_output;
+mod scan;
+mod scan_slurm;
 mod scipy_reference;
 mod steady_state;
 mod trajectories;
