@@ -401,8 +401,8 @@ mod tests {
     fn rec(i: u64) -> PointRecord {
         PointRecord {
             index: i,
-            ok: i % 2 == 0,
-            error: if i % 2 == 0 {
+            ok: i.is_multiple_of(2),
+            error: if i.is_multiple_of(2) {
                 String::new()
             } else {
                 "NaN at t = 1".into()
@@ -446,18 +446,24 @@ mod tests {
         }
         // every truncation keeps exactly the complete records before the cut
         let header_len = frame(&header.encode()).len();
-        let rec_len = frame(&rec(0).encode()).len();
+        // end offsets of the header and of each record
+        let mut ends = vec![header_len];
+        for i in 0..3 {
+            ends.push(ends[ends.len() - 1] + frame(&rec(i).encode()).len());
+        }
+        assert_eq!(ends[3], full.len());
         for cut in 0..full.len() {
             std::fs::write(&path, &full[..cut]).unwrap();
             match read(&path).unwrap() {
                 None => assert!(cut < header_len),
                 Some(c) => {
-                    let whole = (cut - header_len) / rec_len;
+                    let whole = ends.iter().filter(|&&e| e <= cut).count() - 1;
                     assert_eq!(c.points.len(), whole, "cut at {cut}");
-                    assert_eq!(c.valid_len as usize, header_len + whole * rec_len);
+                    assert_eq!(c.valid_len as usize, ends[whole]);
                 }
             }
         }
+        let rec_len = ends[3] - ends[2];
         // a flipped byte in the last record is detected by the checksum
         let mut bad = full.clone();
         let n = bad.len();

@@ -839,8 +839,6 @@ mod tests {
             .to_string();
         assert!(e.contains("s.toml:15") && e.contains("modes[0].los"), "{e}");
         let e = scan("[scan]\n[[scan.axis]]\npath = \"modes[0].levels\"\nvalues = [1]\n")
-            .map(|s| s.unwrap().point_plan(0).map(|_| ()))
-            .unwrap()
             .unwrap_err()
             .to_string();
         assert!(
