@@ -215,8 +215,9 @@ pub struct Split {
 }
 
 /// Choose the split: as many concurrent points as cores, points to run and memory allow (points
-/// are independent, so this scales better than threads inside one small point), and the remaining
-/// cores as threads per point. `parallel` / `threads` override either.
+/// are independent and need no synchronisation, while the density-matrix kernel only uses threads
+/// from d = 64 on), and the remaining cores as threads per point. `parallel` / `threads` override
+/// either.
 pub fn split(
     survey: &Survey,
     todo: usize,
@@ -323,7 +324,9 @@ pub fn duration_label(s: f64) -> String {
         return "unknown".into();
     }
     let s = s.max(0.0);
-    if s < 10.0 {
+    if s < 1.0 {
+        format!("{:.0} ms", s * 1e3)
+    } else if s < 10.0 {
         format!("{s:.1} s")
     } else if s < 60.0 {
         format!("{s:.0} s")
@@ -737,8 +740,8 @@ pub fn estimate(scan: &Scan, sp: &Split) -> Result<Estimate, AppError> {
     let list: Vec<String> = picks.iter().map(|i| i.to_string()).collect();
     let fmin = fracs.iter().copied().fold(1.0, f64::min);
     let how = format!(
-        "calibrated by evolving point(s) {} with {} thread(s) over the first {:.1}% or more of the time span (until a run took 0.2 s), \
-         extrapolating linearly in time{}{}, and assuming every point costs their mean",
+        "calibrated by evolving point(s) {} with {} thread(s) over a growing part of the time span (from 1/64, ×4 until a run took \
+         0.2 s or the whole span; at least {:.1}% here), extrapolating linearly in time{}{}, and assuming every point costs their mean",
         list.join(", "),
         sp.threads,
         100.0 * fmin,
