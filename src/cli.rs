@@ -76,6 +76,13 @@ enum Command {
         #[arg(short = 'o', long = "out-dir")]
         out_dir: Option<PathBuf>,
     },
+    /// Run a parameter scan (a config with [scan]); rerunning the same command resumes it.
+    /// Exit code 3: finished and written, but some points failed.
+    Scan(crate::scan::cmd::ScanArgs),
+    /// Report a scan in progress or finished: points done, failed, remaining, ETA.
+    Status(crate::scan::cmd::StatusArgs),
+    /// Combine the journals of scan shards into one HDF5 file (exit code 3 if points failed).
+    Merge(crate::scan::cmd::MergeArgs),
 }
 
 /// Detector of the photon budget (see README, "Photon budget"); flags override the file.
@@ -195,6 +202,9 @@ fn check(file: &Path) -> Result<(), AppError> {
         eprintln!("warning: {w}");
     }
     run::memory_guard(&plan, &choice)?;
+    if let Some(text) = crate::scan::cmd::check_text(file)? {
+        say(&text);
+    }
     say(&format!("\nok: {} is valid\n", file.display()));
     Ok(())
 }
@@ -214,6 +224,7 @@ fn run_cmd(
     quiet: bool,
 ) -> Result<(), AppError> {
     let mut plan = load(file)?;
+    crate::scan::cmd::refuse_run(file, &plan.source)?;
     if let Some(t) = threads {
         plan.solver.threads = t;
     }
@@ -284,6 +295,12 @@ pub fn main() -> i32 {
             return if e.use_stderr() { 2 } else { 0 };
         }
     };
+    let mut success = 0;
+    let mut points_failed = |failed: usize| {
+        if failed > 0 {
+            success = crate::scan::cmd::EXIT_POINTS_FAILED;
+        }
+    };
     let r = match cli.command {
         Command::Check { file } => check(&file),
         Command::Run {
@@ -313,9 +330,12 @@ pub fn main() -> i32 {
             detector,
         } => budget_cmd(&inputs, &out_dir, &detector),
         Command::Plot { file, out_dir } => plot_cmd(&file, out_dir),
+        Command::Scan(a) => crate::scan::cmd::scan(a).map(&mut points_failed),
+        Command::Status(a) => crate::scan::cmd::status(a).map(|text| say(&text)),
+        Command::Merge(a) => crate::scan::cmd::merge(a).map(&mut points_failed),
     };
     match r {
-        Ok(()) => 0,
+        Ok(()) => success,
         Err(e) => {
             let text = e.to_string();
             if text.starts_with("error:") {

@@ -80,6 +80,9 @@ struct RawConfig {
     #[serde(default)]
     observe: RawObserve,
     steady_state: Option<RawSteady>,
+    /// `[scan]`: read and checked by [`crate::scan`]; a single run ignores it.
+    #[serde(rename = "scan")]
+    _scan: Option<serde::de::IgnoredAny>,
 }
 
 #[derive(Deserialize)]
@@ -450,6 +453,19 @@ pub fn parse(path: &Path, text: &str) -> Result<RunPlan, ConfigErrors> {
         Some(p) if r.errors.is_empty() => Ok(p),
         _ => Err(ConfigErrors(r.errors)),
     }
+}
+
+/// The 1-based line of the dotted key `key` (e.g. `modes[1].loss`) in the config text `text`, when
+/// it is present (or the line of its closest present parent).
+pub fn key_line(text: &str, key: &str) -> Option<usize> {
+    let r = Resolver {
+        path: PathBuf::new(),
+        text: text.to_string(),
+        errors: Vec::new(),
+        warnings: Vec::new(),
+        doc: text.parse::<toml_edit::ImDocument<String>>().ok(),
+    };
+    r.locate(key)
 }
 
 fn line_of(text: &str, offset: usize) -> usize {

@@ -143,6 +143,8 @@ pub enum Data {
     /// (use shape `&[]` for a scalar dataset). Meant for texts such as the
     /// whole input TOML; there is no size limit beyond memory.
     Str(String),
+    /// A 1-D array of UTF-8 strings (h5py: variable-length strings; read with `ds.asstr()[()]`).
+    Strs(Vec<String>),
 }
 
 impl Data {
@@ -152,6 +154,7 @@ impl Data {
             Data::F64(v) => v.len(),
             Data::I64(v) => v.len(),
             Data::Str(_) => 1,
+            Data::Strs(v) => v.len(),
         }
     }
 
@@ -496,10 +499,13 @@ fn validate_group(g: &Group, at: &str) -> Result<(), (String, String)> {
                 ))
             }
         }
-        if let Data::Str(s) = &ds.data {
-            if s.contains('\0') {
-                return Err((obj, "string data contains a NUL character".into()));
-            }
+        let nul = match &ds.data {
+            Data::Str(s) => s.contains('\0'),
+            Data::Strs(v) => v.iter().any(|s| s.contains('\0')),
+            _ => false,
+        };
+        if nul {
+            return Err((obj, "string data contains a NUL character".into()));
         }
         validate_attrs(&ds.attrs, &obj)?;
     }
@@ -589,6 +595,10 @@ mod backend {
             Data::F64(v) => b.with_f64_data(v),
             Data::I64(v) => b.with_i64_data(v),
             Data::Str(s) => b.with_vlen_strings(&[s.as_str()]),
+            Data::Strs(v) => {
+                let refs: Vec<&str> = v.iter().map(String::as_str).collect();
+                b.with_vlen_strings(&refs)
+            }
         };
         b.with_shape(&shape);
         for (name, v) in &ds.attrs {
@@ -663,6 +673,7 @@ mod tests {
                         s.len(),
                         hex(&Sha256::digest(s.as_bytes()))
                     ),
+                    Data::Strs(v) => format!("('strs', {})", py_list(v, |s| py_str(s))),
                 };
                 let shape: String = ds.shape.iter().map(|d| format!("{d},")).collect();
                 format!(

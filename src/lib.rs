@@ -12,6 +12,7 @@ pub mod output;
 pub mod plot;
 pub mod report;
 pub mod run;
+pub mod scan;
 pub mod units;
 
 /// An application failure, classified by exit code.

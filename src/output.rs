@@ -1,7 +1,7 @@
 //! The HDF5 result file of a time-evolution run.
 //!
 //! Layout (all our own names):
-//! - root attributes: `tool`, `version`, `config_sha256`, `units_system`, `frequency_unit`,
+//! - root attributes: `tool`, `kind` (= `run`), `version`, `config_sha256`, `units_system`, `frequency_unit`,
 //!   `time_unit`, `units_convention`, `title` (if given), `n_warnings` and `warnings` (one string per warning, when any).
 //! - `/time` — sample times, attribute `units`.
 //! - `/observables/<name>` — `[rows, time]` (or `[time]` for single-row quantities) with
@@ -34,9 +34,8 @@ pub fn config_hash(text: &str) -> String {
     digest.iter().map(|b| format!("{b:02x}")).collect()
 }
 
-/// Build the file tree of a run.
-pub fn tree(plan: &RunPlan, res: &RunResult) -> Group {
-    let mut root = Group::new();
+/// The root attributes every cavern file has: tool, version, config hash and path, units, title.
+pub fn identity_attrs(root: &mut Group, plan: &RunPlan) {
     root.attr("tool", "cavern")
         .attr("version", env!("CARGO_PKG_VERSION"))
         .attr("config_sha256", config_hash(&plan.source))
@@ -51,13 +50,20 @@ pub fn tree(plan: &RunPlan, res: &RunResult) -> Group {
         )
         .attr("frequency_unit", plan.units.frequency_label())
         .attr("time_unit", plan.units.time_label())
-        .attr("units_convention", plan.units.convention())
+        .attr("units_convention", plan.units.convention());
+    if let Some(t) = &plan.title {
+        root.attr("title", t.as_str());
+    }
+}
+
+/// Build the file tree of a run.
+pub fn tree(plan: &RunPlan, res: &RunResult) -> Group {
+    let mut root = Group::new();
+    identity_attrs(&mut root, plan);
+    root.attr("kind", "run")
         .attr("n_warnings", res.warnings.len() as i64);
     if !res.warnings.is_empty() {
         root.attr("warnings", res.warnings.clone());
-    }
-    if let Some(t) = &plan.title {
-        root.attr("title", t.as_str());
     }
     let n_t = res.times.len();
     root.dataset("time", &[n_t], Data::F64(res.times.clone()))

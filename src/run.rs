@@ -408,7 +408,7 @@ impl RunResult {
 
 /// Build the observable table for `plan` solved by `method` (trajectories have no purity and no
 /// trace error: every trajectory is a normalised pure state).
-fn make_series(plan: &RunPlan, n_t: usize, method: Method) -> Vec<Series> {
+pub fn make_series(plan: &RunPlan, n_t: usize, method: Method) -> Vec<Series> {
     let n = plan.network.sites.len();
     let sites: Vec<String> = (0..n).map(|i| format!("site{i}")).collect();
     let modes = plan.mode_names.clone();

@@ -13,6 +13,8 @@
 //!   the loss of an empty driven cavity doubles, the z-test, recall rows and scan points.
 //! - `budget` — the photon budget against a Poisson hand calculation and exact SciPy errors.
 //! - `plot` — `cavern plot` / compare figures are valid PNG and SVG files of sensible size.
+//! - `scan`, `scan_slurm` — parameter scans: output layout, kill -9 and resume, shards and merge,
+//!   and a SLURM job array on a local cluster (run only when `.ci/run` started one).
 //! - `trajectories` — the quantum-trajectory solver: agreement with the density matrix,
 //!   antibunching, Poissonian counts, thread-count reproducibility, `auto`, the file layout.
 
@@ -22,6 +24,8 @@ mod compare;
 mod config_errors;
 mod plot;
 mod run_output;
+mod scan;
+mod scan_slurm;
 mod scipy_reference;
 mod steady_state;
 mod trajectories;
