@@ -224,6 +224,7 @@ pub fn check_text(plan: &RunPlan, dim: usize, choice: &SolverChoice) -> String {
         let form = match net.coupling_form {
             CouplingForm::Exchange => "exchange g(aσ⁺ + a†σ⁻)",
             CouplingForm::Dipole => "dipole g(a + a†)σˣ",
+            CouplingForm::Longitudinal => "longitudinal g(a + a†)σᶻ",
         };
         let _ = writeln!(
             s,
