@@ -17,7 +17,7 @@
 //! assert_eq!(out.state, p[0]);
 //! ```
 
-use cavern_model::memory::Couplings;
+use cavern_model::memory::{Couplings, Pattern};
 use cavern_model::network::glauber_up;
 use rand_chacha::ChaCha8Rng;
 use rand_core::{Rng, SeedableRng};
@@ -96,6 +96,19 @@ impl<'a> Spins<'a> {
             converged,
         }
     }
+}
+
+/// `count` independent random patterns of `n` entries, each entry ±1 with probability ½
+/// (ChaCha8 seeded by `seed`; reproducible).
+pub fn random_patterns(n: usize, count: usize, seed: u64) -> Vec<Pattern> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    (0..count)
+        .map(|_| {
+            (0..n)
+                .map(|_| if rng.next_u64() >> 63 == 1 { 1 } else { -1 })
+                .collect()
+        })
+        .collect()
 }
 
 /// Uniform number in [0, 1) from 53 random bits.
