@@ -6,6 +6,7 @@ pub mod clicks;
 pub mod config;
 pub mod h5out;
 pub mod output;
+pub mod recall;
 pub mod report;
 pub mod run;
 pub mod units;

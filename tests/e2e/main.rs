@@ -7,6 +7,9 @@
 //! - `check` — what `cavern check` reports (dimension, memory, units, cooperativity).
 //! - `run_output` — `cavern run`: the HDF5 layout, the summary table, quiet mode, determinism,
 //!   the truncation warning and output-path errors.
+//! - `recall` — `[memory]` and `[probes]`: the couplings and spectrum `check` prints, the
+//!   `/memory` and `/recall` groups recomputed with NumPy, the recall table, erased probes, the
+//!   classical limit of the quantum network.
 //! - `scipy_reference` — a 2-spin + 1-mode run against an independent SciPy propagation.
 //! - `steady_state` — `[steady_state]`: analytic steady states, relaxation rates, non-uniqueness.
 //! - `trajectories` — the quantum-trajectory solver: agreement with the density matrix,
@@ -14,6 +17,7 @@
 
 mod check;
 mod config_errors;
+mod recall;
 mod run_output;
 mod scipy_reference;
 mod steady_state;
