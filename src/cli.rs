@@ -250,10 +250,14 @@ fn run_cmd(
         .map_err(|e| AppError::Input(format!("{}: {e}", file.display())))?;
     let choice = run::choose(&plan, space.dim());
     run::memory_guard(&plan, &choice)?;
-    let (total, unit) = match (choice.method, &plan.solver.trajectories) {
-        (Method::Trajectories, Some(tp)) => (tp.trajectories, "trajectories"),
-        _ => (plan.times.len(), "samples"),
+    let probes = plan.memory.as_ref().and_then(|m| m.probes.as_ref());
+    let unit = match (choice.method, probes.is_some()) {
+        (Method::Trajectories, false) => "trajectories",
+        (Method::DensityMatrix, false) => "samples",
+        (Method::Trajectories, true) => "trajectories, then probes",
+        (Method::DensityMatrix, true) => "samples, then probes",
     };
+    let total = run::progress_total(&plan, choice.method);
     if !quiet {
         say(&format!(
             "method: {} ({})\n",

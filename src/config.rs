@@ -5,6 +5,9 @@
 //! The key reference with units and conventions is in README.md ("Config reference"); each key
 //! below is documented once, where it is parsed.
 
+mod memory;
+
+use crate::recall::MemoryPlan;
 use crate::units::Units;
 use cavern_model::{
     Channel, CouplingForm, Envelope, ModeInit, ModeParams, Network, ProductState, SiteParams,
@@ -83,6 +86,8 @@ struct RawConfig {
     /// `[scan]`: read and checked by [`crate::scan`]; a single run ignores it.
     #[serde(rename = "scan")]
     _scan: Option<serde::de::IgnoredAny>,
+    memory: Option<memory::RawMemory>,
+    probes: Option<memory::RawProbes>,
 }
 
 #[derive(Deserialize)]
@@ -372,6 +377,9 @@ pub struct RunPlan {
     pub warnings: Vec<String>,
     /// Steady state and relaxation rates, when `[steady_state]` is present.
     pub steady: Option<SteadyPlan>,
+    /// Stored patterns and probes, when `[memory]` is present (already applied to `network`,
+    /// `initial` and `observe`).
+    pub memory: Option<MemoryPlan>,
 }
 
 /// Which steady-state solver the config asks for.
@@ -823,8 +831,29 @@ impl Resolver {
             }
         }
 
-        let initial = self.resolve_initial(raw.initial.as_ref(), n_sites, &network.modes);
-        let observe = self.resolve_observe(&raw.observe, n_sites);
+        let mut initial = self.resolve_initial(raw.initial.as_ref(), n_sites, &network.modes);
+        let memory = self.resolve_memory(
+            raw.memory.as_ref(),
+            raw.probes.as_ref(),
+            memory::Target {
+                has_zz: raw.spin_spin.as_ref().is_some_and(|s| s.zz.is_some()),
+                has_coupling: raw.coupling.is_some(),
+                network: &mut network,
+                initial: &mut initial,
+                mode_names: &mut mode_names,
+                method: solver.method,
+                units,
+            },
+        );
+        let mut observe = self.resolve_observe(&raw.observe, n_sites);
+        if let Some(m) = &memory {
+            // the stored patterns are observed first, then any other configured pattern
+            let extra: Vec<Vec<i8>> = std::mem::take(&mut observe.patterns)
+                .into_iter()
+                .filter(|p| !m.patterns.contains(p))
+                .collect();
+            observe.patterns = m.patterns.iter().cloned().chain(extra).collect();
+        }
         let t_end = times.last().copied().unwrap_or(0.0);
         let steady = raw
             .steady_state
@@ -859,6 +888,7 @@ impl Resolver {
             observe,
             warnings: std::mem::take(&mut self.warnings),
             steady,
+            memory,
         })
     }
 

@@ -10,6 +10,7 @@ pub mod h5in;
 pub mod h5out;
 pub mod output;
 pub mod plot;
+pub mod recall;
 pub mod report;
 pub mod run;
 pub mod scan;

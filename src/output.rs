@@ -11,6 +11,9 @@
 //!   `integrator`, `rtol`, `atol`, `max_step`, `steps`, `rejected_steps`, `rhs_evaluations`,
 //!   `wall_seconds`, `threads`; for trajectories also `trajectories`, `seed`, `keep`, `unravelling`.
 //! - `/input/config_toml` — the config text exactly as read.
+//! - `/memory` (with `[memory]`) — the stored patterns, the coupling matrix J, its spectrum and
+//!   the realisation; `/recall` (with `[probes]`) — the recall curve and every probe (README.md,
+//!   "Associative memory").
 //!
 //! Trajectory runs only (see README.md, "Quantum trajectories"):
 //! - `/observables/<name>_stderr` — standard error of the mean of each observable.
@@ -23,6 +26,7 @@
 use crate::clicks::ClickAnalysis;
 use crate::config::{Method, RunPlan};
 use crate::h5out::{write_atomic, Data, Group};
+use crate::recall::{MemoryPlan, ProbePlan, Realisation, RecallResult};
 use crate::run::RunResult;
 use crate::AppError;
 use sha2::{Digest, Sha256};
@@ -159,6 +163,12 @@ pub fn tree(plan: &RunPlan, res: &RunResult) -> Group {
     if let Some(st) = &res.steady {
         write_steady_groups(&mut root, plan, st);
     }
+    if let Some(mem) = &plan.memory {
+        write_memory_group(&mut root, plan, mem);
+        if let (Some(pp), Some(rec)) = (&mem.probes, &res.recall) {
+            write_recall_group(&mut root, plan, mem, pp, rec);
+        }
+    }
     root.group("input")
         .dataset("config_toml", &[], Data::Str(plan.source.clone()));
     root
@@ -269,6 +279,312 @@ fn write_steady_groups(root: &mut Group, plan: &RunPlan, st: &crate::run::Steady
             Data::F64(rel.error_estimates.clone()),
         )
         .attr("units", rate_unit.as_str());
+    }
+}
+
+/// `/memory`: patterns, couplings J (rule units), their spectrum, the realisation.
+fn write_memory_group(root: &mut Group, plan: &RunPlan, mem: &MemoryPlan) {
+    let n = mem.couplings.n();
+    let n_p = mem.patterns.len();
+    let fu = plan.units.frequency_label();
+    let back = |w: f64| w / plan.units.angular(1.0);
+    let g = root.group("memory");
+    g.attr(
+        "rule",
+        mem.rule.map_or("none (a given matrix)", |r| r.name()),
+    )
+    .attr("realisation", mem.realisation.name())
+    .attr("scale", back(mem.scale))
+    .attr("scale_units", fu)
+    .attr(
+        "scale_definition",
+        "the zz couplings are Jz_ij = -(2 pi scale) J_ij (physical units; Jz = -scale J in \
+         dimensionless units), i.e. H_zz = sum_{i<j} Jz_ij sz_i sz_j = (2 pi scale) E(s) with the \
+         Hopfield energy E(s) = -1/2 sum_ij J_ij s_i s_j",
+    );
+    if let Realisation::Modes {
+        first_mode,
+        levels,
+        detuning,
+        loss,
+        coupling,
+    } = &mem.realisation
+    {
+        g.attr("first_memory_mode", *first_mode as i64)
+            .attr("mode_levels", *levels as i64)
+            .attr("mode_detuning", back(*detuning))
+            .attr("mode_loss", back(*loss))
+            .attr("mode_coupling", back(*coupling))
+            .attr(
+                "mediation",
+                "one mode per pattern, H = Delta a^dagger a + g xi_i (a + a^dagger) sz_i; after \
+                 adiabatic elimination (Reiter & Sorensen, Phys. Rev. A 85, 032111 (2012)) \
+                 Jz_ij = -2 g^2 Delta/(Delta^2 + kappa^2/4) sum_mu xi_i xi_j, so the scale is \
+                 2 N g^2 Delta/(Delta^2 + kappa^2/4) and J is the Hebbian matrix",
+            );
+    }
+    if let Some(r) = &mem.relaxation {
+        g.attr("relaxation_rate", back(r.rate))
+            .attr("relaxation_temperature", back(r.temperature))
+            .attr("relaxation_units", fu);
+    }
+    g.dataset(
+        "couplings",
+        &[n, n],
+        Data::F64(mem.couplings.rows().concat()),
+    )
+    .attr("units", "1 (rule units)")
+    .attr(
+        "description",
+        "symmetric coupling matrix J with zero diagonal; E(s) = -1/2 sum_ij J_ij s_i s_j",
+    );
+    g.dataset("spectrum", &[n], Data::F64(mem.couplings.spectrum()))
+        .attr("units", "1 (rule units)")
+        .attr("description", "eigenvalues of J, ascending");
+    g.dataset(
+        "patterns",
+        &[n_p, n],
+        Data::I64(
+            mem.patterns
+                .iter()
+                .flatten()
+                .map(|&x| i64::from(x))
+                .collect(),
+        ),
+    )
+    .attr("units", "1")
+    .attr(
+        "description",
+        "stored patterns, +1 = excited |e> (sz = +1), -1 = ground",
+    );
+}
+
+/// `/recall`: the recall curve and every probe (contract C2).
+fn write_recall_group(
+    root: &mut Group,
+    plan: &RunPlan,
+    mem: &MemoryPlan,
+    pp: &ProbePlan,
+    rec: &RecallResult,
+) {
+    let tu = plan.units.time_label();
+    let k = rec.curve.len();
+    let p = rec.outcomes.len();
+    let n = mem.couplings.n();
+    let n_p = mem.patterns.len();
+    let n_t = plan.times.len();
+    let g = root.group("recall");
+    g.attr("threshold", pp.threshold)
+        .attr("probe_count", p as i64)
+        .attr("method", rec.method.name())
+        .attr("corruption", pp.corruption.name())
+        .attr("seed", pp.seed as i64)
+        .attr("trajectories_per_probe", rec.trajectories as i64)
+        .attr("glauber_temperature", pp.glauber_temperature)
+        .attr("glauber_sweeps", pp.glauber_sweeps as i64)
+        .attr("glauber_runs", pp.glauber_runs as i64)
+        .attr("wall_seconds", rec.wall_seconds)
+        .attr(
+            "description",
+            "recall of stored patterns from corrupted probes: a probe succeeds when its final \
+             overlap m = (1/N) sum_i xi_i <sz_i> with the probed pattern is above threshold",
+        );
+    let col = |f: &dyn Fn(&crate::recall::CurvePoint) -> f64| -> Data {
+        Data::F64(rec.curve.iter().map(f).collect())
+    };
+    g.dataset(
+        "flips",
+        &[k],
+        Data::I64(rec.curve.iter().map(|c| c.flips as i64).collect()),
+    )
+    .attr("units", "sites")
+    .attr(
+        "description",
+        "number of corrupted (flipped or erased) sites k",
+    );
+    g.dataset(
+        "n_probes",
+        &[k],
+        Data::I64(rec.curve.iter().map(|c| c.probes as i64).collect()),
+    )
+    .attr("units", "probes")
+    .attr("description", "probes with k corrupted sites");
+    g.dataset("success", &[k], col(&|c| c.success))
+        .attr("units", "1")
+        .attr(
+            "description",
+            "density matrix: fraction of probes recalled; trajectories: mean over the probes of \
+             the fraction of trajectories whose own final overlap is above threshold",
+        );
+    g.dataset("success_stderr", &[k], col(&|c| c.success_stderr))
+        .attr("units", "1")
+        .attr(
+            "description",
+            "density matrix: sqrt(f(1-f)/n) over the n probes; trajectories: sqrt(sum of the \
+             probes' squared standard errors)/n",
+        );
+    g.dataset("time_to_recall", &[k], col(&|c| c.time_to_recall))
+        .attr("units", tu)
+        .attr(
+            "description",
+            "mean over the successful probes of the first sample time after which the overlap \
+             stays above threshold; NaN if none succeeded",
+        );
+    g.dataset(
+        "baseline_descent_success",
+        &[k],
+        col(&|c| c.descent_success),
+    )
+    .attr("units", "1")
+    .attr(
+        "description",
+        "classical zero-temperature asynchronous Hopfield dynamics on the same J from the same \
+         probes (erased sites: random signs): fraction recalled",
+    );
+    g.dataset(
+        "baseline_glauber_success",
+        &[k],
+        col(&|c| c.glauber_success),
+    )
+    .attr("units", "1")
+    .attr(
+        "description",
+        "classical Glauber dynamics on the same J at glauber_temperature (units of J) for \
+         glauber_sweeps sweeps, glauber_runs runs per probe: fraction recalled",
+    );
+    let o = &rec.outcomes;
+    let probes = g.group("probes");
+    probes
+        .dataset(
+            "pattern",
+            &[p],
+            Data::I64(pp.probes.iter().map(|x| x.pattern as i64).collect()),
+        )
+        .attr("units", "1")
+        .attr("description", "index of the probed pattern");
+    probes
+        .dataset(
+            "flips",
+            &[p],
+            Data::I64(pp.probes.iter().map(|x| x.sites.len() as i64).collect()),
+        )
+        .attr("units", "sites")
+        .attr("description", "number of corrupted sites");
+    probes
+        .dataset(
+            "flipped_sites",
+            &[p, n],
+            Data::I64(
+                pp.probes
+                    .iter()
+                    .flat_map(|x| (0..n).map(|i| i64::from(x.sites.contains(&i))))
+                    .collect(),
+            ),
+        )
+        .attr("units", "1")
+        .attr("description", "1 where the site started flipped or erased");
+    probes
+        .dataset(
+            "final_overlap",
+            &[p, n_p],
+            Data::F64(o.iter().flat_map(|x| x.final_overlap.clone()).collect()),
+        )
+        .attr("units", "1")
+        .attr(
+            "description",
+            "overlap with every pattern at the last sample",
+        );
+    probes
+        .dataset(
+            "retrieved",
+            &[p],
+            Data::I64(o.iter().map(|x| x.retrieved).collect()),
+        )
+        .attr("units", "1")
+        .attr(
+            "description",
+            format!(
+                "retrieved entry: mu when m_mu > threshold, {n_p} + mu when -m_mu > threshold \
+                 (the negation of pattern mu), -1 when none"
+            ),
+        );
+    probes
+        .dataset(
+            "success",
+            &[p],
+            Data::I64(o.iter().map(|x| i64::from(x.success)).collect()),
+        )
+        .attr("units", "1")
+        .attr(
+            "description",
+            "1 when the final overlap with the probed pattern is above threshold (for \
+             trajectories: the trajectory-averaged overlap)",
+        );
+    probes
+        .dataset(
+            "time_to_recall",
+            &[p],
+            Data::F64(o.iter().map(|x| x.time_to_recall).collect()),
+        )
+        .attr("units", tu)
+        .attr(
+            "description",
+            "first sample time after which the overlap with the probed pattern stays above \
+             threshold; NaN when the final overlap is not above it",
+        );
+    probes
+        .dataset(
+            "overlaps",
+            &[p, n_p, n_t],
+            Data::F64(o.iter().flat_map(|x| x.overlaps.clone()).collect()),
+        )
+        .attr("units", "1")
+        .attr(
+            "description",
+            "m_mu(t) = (1/N) sum_i xi_i^mu <sz_i>(t) for every pattern at the times of /time",
+        );
+    probes
+        .dataset(
+            "descent_success",
+            &[p],
+            Data::F64(o.iter().map(|x| x.descent_success).collect()),
+        )
+        .attr("units", "1")
+        .attr(
+            "description",
+            "classical descent from the same probe recalled it (0/1)",
+        );
+    probes
+        .dataset(
+            "glauber_success",
+            &[p],
+            Data::F64(o.iter().map(|x| x.glauber_success).collect()),
+        )
+        .attr("units", "1")
+        .attr(
+            "description",
+            "fraction of the classical Glauber runs that recalled it",
+        );
+    if o.iter().all(|x| x.success_probability.is_some()) && !o.is_empty() {
+        let sp = |f: fn((f64, f64)) -> f64| {
+            Data::F64(
+                o.iter()
+                    .map(|x| x.success_probability.map_or(f64::NAN, f))
+                    .collect(),
+            )
+        };
+        probes
+            .dataset("success_probability", &[p], sp(|x| x.0))
+            .attr("units", "1")
+            .attr(
+                "description",
+                "fraction of trajectories whose own final overlap with the probed pattern is \
+                 above threshold",
+            );
+        probes
+            .dataset("success_probability_stderr", &[p], sp(|x| x.1))
+            .attr("units", "1")
+            .attr("description", "its standard error over the trajectories");
     }
 }
 

@@ -1,6 +1,7 @@
 //! Terminal reports: what `cavern check` prints about a model, and the summary table of a run.
 
 use crate::config::{Method, MethodRequest, RunPlan};
+use crate::recall::{MemoryPlan, ProbePlan, Realisation, RecallResult};
 use crate::run::{bytes_label, resolved_threads, MemoryEstimate, RunResult, SolverChoice};
 use cavern_model::{Channel, CouplingForm, Envelope};
 use std::fmt::Write;
@@ -224,6 +225,7 @@ pub fn check_text(plan: &RunPlan, dim: usize, choice: &SolverChoice) -> String {
         let form = match net.coupling_form {
             CouplingForm::Exchange => "exchange g(aσ⁺ + a†σ⁻)",
             CouplingForm::Dipole => "dipole g(a + a†)σˣ",
+            CouplingForm::Longitudinal => "longitudinal g(a + a†)σᶻ",
         };
         let _ = writeln!(
             s,
@@ -325,14 +327,183 @@ pub fn check_text(plan: &RunPlan, dim: usize, choice: &SolverChoice) -> String {
         plan.initial.modes
     );
     if !plan.observe.patterns.is_empty() {
-        let p: Vec<String> = plan
-            .observe
-            .patterns
-            .iter()
-            .map(|p| p.iter().map(|&x| if x > 0 { '+' } else { '-' }).collect())
-            .collect();
+        let p: Vec<String> = plan.observe.patterns.iter().map(|p| signs(p)).collect();
         let _ = writeln!(s, "patterns    {}", p.join(", "));
     }
+    if let Some(mem) = &plan.memory {
+        s.push_str(&memory_text(plan, mem));
+    }
+    s
+}
+
+/// A ±1 pattern as a string of + and −.
+fn signs(p: &[i8]) -> String {
+    p.iter().map(|&x| if x > 0 { '+' } else { '-' }).collect()
+}
+
+/// The `[memory]` and `[probes]` part of `cavern check`: J, its spectrum, the scale, the
+/// realisation and the probes.
+fn memory_text(plan: &RunPlan, mem: &MemoryPlan) -> String {
+    let u = plan.units;
+    let fu = u.frequency_label();
+    let back = |w: f64| w / u.angular(1.0);
+    let mut s = String::new();
+    let n = mem.couplings.n();
+    let rule = mem
+        .rule
+        .map_or("none (the matrix is given)".to_string(), |r| {
+            r.name().to_string()
+        });
+    let _ = writeln!(
+        s,
+        "\nmemory      {} pattern(s) of {n} sites, rule {rule}, realisation {}",
+        mem.patterns.len(),
+        mem.realisation.name()
+    );
+    for (mu, p) in mem.patterns.iter().enumerate() {
+        let _ = writeln!(s, "  pattern {mu}: \"{}\"", signs(p));
+    }
+    let _ = writeln!(
+        s,
+        "  coupling matrix J (rule units, dimensionless; energy E(s) = −½ Σᵢⱼ Jᵢⱼ sᵢsⱼ):"
+    );
+    for (i, row) in mem.couplings.rows().iter().enumerate() {
+        let r: Vec<String> = row.iter().map(|&x| sig(x)).collect();
+        let _ = writeln!(s, "    site {i}: [{}]", r.join(", "));
+    }
+    let spec: Vec<String> = mem.couplings.spectrum().iter().map(|&x| sig(x)).collect();
+    let _ = writeln!(s, "  spectrum of J (ascending): [{}]", spec.join(", "));
+    let _ = writeln!(
+        s,
+        "  scale c/2π = {} {fu}: Jᶻ = −c·J, so H_zz = Σᵢ<ⱼ Jᶻᵢⱼ σᶻᵢσᶻⱼ = c·E(s)",
+        sig(back(mem.scale))
+    );
+    if let Realisation::Modes {
+        first_mode,
+        levels,
+        detuning,
+        loss,
+        coupling,
+    } = &mem.realisation
+    {
+        let _ = writeln!(
+            s,
+            "  memory modes {} … {}: one per pattern, {levels} Fock levels, Δ/2π = {} {fu}, κ/2π = {} {fu}, longitudinal coupling gξᵢ^μ (a_μ + a_μ†)σᶻᵢ with g/2π = {} {fu}",
+            first_mode,
+            first_mode + mem.patterns.len() - 1,
+            sig(back(*detuning)),
+            sig(back(*loss)),
+            sig(back(*coupling))
+        );
+        let d = *detuning;
+        let k = *loss;
+        let _ = writeln!(
+            s,
+            "  effective zz after adiabatic elimination of the modes (effective-operator formalism, Reiter & Sørensen, Phys. Rev. A 85, 032111 (2012)): \
+             Jᶻᵢⱼ = −2g²Δ/(Δ² + κ²/4) Σ_μ ξᵢ^μξⱼ^μ, i.e. the Hebbian J with c = 2N g²Δ/(Δ² + κ²/4); g²Δ/(Δ² + κ²/4)/2π = {} {fu}; valid for |Δ| ≫ g√N and small g/Δ",
+            sig(back(coupling * coupling * d / (d * d + 0.25 * k * k)))
+        );
+        let jz = cavern_model::memory::zz_from_couplings(&mem.couplings, mem.scale);
+        let _ = writeln!(
+            s,
+            "  effective Jᶻ/2π in {fu} (not in the Hamiltonian; the modes are):"
+        );
+        for (i, row) in jz.iter().enumerate() {
+            let r: Vec<String> = row.iter().map(|&x| sig(back(x))).collect();
+            let _ = writeln!(s, "    site {i}: [{}]", r.join(", "));
+        }
+    }
+    if let Some(r) = &mem.relaxation {
+        let _ = writeln!(
+            s,
+            "  local-field (Glauber) relaxation: jumps √γ_G σ⁺ᵢ w↑(ĥᵢ)^½ and √γ_G σ⁻ᵢ w↓(ĥᵢ)^½, ĥᵢ = −Σⱼ Jᶻᵢⱼσᶻⱼ, w↑(h) = 1/(1 + e^(−2h/T)); γ_G/2π = {} {fu}, k_B T/h = {} {fu} (T/c = {} in units of J)",
+            sig(back(r.rate)),
+            sig(back(r.temperature)),
+            sig(r.temperature / mem.scale)
+        );
+    }
+    if let Some(pp) = &mem.probes {
+        let mut pats: Vec<usize> = pp.probes.iter().map(|p| p.pattern).collect();
+        pats.dedup();
+        let mut ks: Vec<usize> = pp.probes.iter().map(|p| p.sites.len()).collect();
+        ks.sort_unstable();
+        ks.dedup();
+        let _ = writeln!(
+            s,
+            "probes      {} probe(s) of pattern(s) {pats:?} with k = {ks:?} corrupted site(s) ({}), seed {}; success: final overlap with the probed pattern > {}",
+            pp.probes.len(),
+            pp.corruption.name(),
+            pp.seed,
+            pp.threshold
+        );
+        let _ = writeln!(
+            s,
+            "baseline    classical on the same J: zero-temperature asynchronous descent, and Glauber at T = {} (units of J), {} sweeps, {} runs per probe",
+            sig(pp.glauber_temperature),
+            pp.glauber_sweeps,
+            pp.glauber_runs
+        );
+    }
+    s
+}
+
+/// The recall table printed after a run with `[probes]`.
+pub fn recall_table(plan: &RunPlan, pp: &ProbePlan, rec: &RecallResult) -> String {
+    let tu = plan.units.time_label();
+    let t1 = plan.times.last().copied().unwrap_or(0.0);
+    let mut s = String::new();
+    let how = match rec.method {
+        Method::DensityMatrix => {
+            "density matrix; ± is the spread over probes √(f(1−f)/n)".to_string()
+        }
+        Method::Trajectories => format!(
+            "{} trajectories per probe; ± is the standard error over trajectories",
+            rec.trajectories
+        ),
+    };
+    let _ = writeln!(
+        s,
+        "\nrecall of {} probe(s) ({}; {how}): success = final overlap with the probed pattern > {} at t = {} {tu}",
+        rec.outcomes.len(),
+        pp.corruption.name(),
+        pp.threshold,
+        sig(t1)
+    );
+    let ttr = format!("time to recall [{tu}]");
+    let gl = format!("Glauber success (T = {})", sig(pp.glauber_temperature));
+    let _ = writeln!(
+        s,
+        "{:>3} {:>6} {:>22} {:>20} {:>16} {:>w$}",
+        "k",
+        "probes",
+        "quantum success ± err",
+        ttr,
+        "descent success",
+        gl,
+        w = gl.chars().count().max(16)
+    );
+    for c in &rec.curve {
+        let _ = writeln!(
+            s,
+            "{:>3} {:>6} {:>22} {:>20} {:>16.3} {:>w$.3}",
+            c.flips,
+            c.probes,
+            format!("{:.3} ± {:.3}", c.success, c.success_stderr),
+            if c.time_to_recall.is_nan() {
+                "–".to_string()
+            } else {
+                format!("{:.4}", c.time_to_recall)
+            },
+            c.descent_success,
+            c.glauber_success,
+            w = gl.chars().count().max(16)
+        );
+    }
+    let _ = writeln!(
+        s,
+        "(probes: {:.3} s wall; per-probe overlaps, retrieved patterns and times in /recall)",
+        rec.wall_seconds
+    );
     s
 }
 
@@ -439,6 +610,12 @@ pub fn summary_table(plan: &RunPlan, res: &RunResult) -> String {
     }
     if let Some(st) = &res.steady {
         s.push_str(&steady_text(plan, st));
+    }
+    if let (Some(pp), Some(rec)) = (
+        plan.memory.as_ref().and_then(|m| m.probes.as_ref()),
+        &res.recall,
+    ) {
+        s.push_str(&recall_table(plan, pp, rec));
     }
     s
 }

@@ -378,6 +378,8 @@ pub struct RunResult {
     pub trajectory: Option<TrajectoryOutput>,
     /// Steady state and relaxation rates, when the config asks for them.
     pub steady: Option<SteadyOutput>,
+    /// The probes of `[probes]`: recall curve and per-probe metrics.
+    pub recall: Option<crate::recall::RecallResult>,
 }
 
 /// What the steady-state computation produced.
@@ -610,8 +612,23 @@ pub fn initial_truncation_warnings(plan: &RunPlan) -> Vec<String> {
     w
 }
 
+/// Units of progress of a run: samples (density matrix) or trajectories of the main evolution,
+/// plus one per probe.
+pub fn progress_total(plan: &RunPlan, method: Method) -> usize {
+    let main = match (method, &plan.solver.trajectories) {
+        (Method::Trajectories, Some(tp)) => tp.trajectories,
+        _ => plan.times.len(),
+    };
+    main + plan
+        .memory
+        .as_ref()
+        .and_then(|m| m.probes.as_ref())
+        .map_or(0, |p| p.probes.len())
+}
+
 /// Run `plan`. `progress(done, total)` is called after every sample (density matrix) or every
-/// finished trajectory (trajectories), possibly from worker threads.
+/// finished trajectory (trajectories), then after every probe, possibly from worker threads
+/// (`total` = [`progress_total`]).
 ///
 /// # Errors
 /// [`AppError::Input`] for a model the config layer let through but the solver refuses or the
@@ -760,6 +777,19 @@ pub fn run(
         Some(sp) => Some(pool.install(|| solve_steady(plan, &me, sp, &mut warnings))?),
         None => None,
     };
+    let recall = match &plan.memory {
+        Some(mem) => {
+            let total = progress_total(plan, choice.method);
+            let main = total - mem.probes.as_ref().map_or(0, |p| p.probes.len());
+            let done = AtomicUsize::new(main);
+            pool.install(|| {
+                crate::recall::run_probes(plan, &me, mem, choice.method, opts, &|k| {
+                    progress(done.fetch_add(k, Ordering::Relaxed) + k, total)
+                })
+            })?
+        }
+        None => None,
+    };
     Ok(RunResult {
         times: plan.times.clone(),
         series,
@@ -771,6 +801,7 @@ pub fn run(
         choice,
         trajectory,
         steady,
+        recall,
     })
 }
 

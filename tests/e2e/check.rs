@@ -19,9 +19,9 @@ fn cooperativities(stdout: &str) -> Vec<f64> {
 }
 
 #[test]
-fn demo_check_reports_dimension_memory_units_and_cooperativity() {
+fn resonator_ring_check_reports_dimension_memory_units_and_cooperativity() {
     let sb = Sandbox::new();
-    let demo = repo().join("demo-data").join("ring4.toml");
+    let demo = repo().join("configs").join("ring4-resonator.toml");
     let out = sb.cavern(["check".as_ref(), demo.as_os_str()]);
     out.assert_success();
     let s = &out.stdout;
@@ -36,7 +36,10 @@ fn demo_check_reports_dimension_memory_units_and_cooperativity() {
         mem.contains("needs ≈") && ["KiB", "MiB", "GiB"].iter().any(|u| mem.contains(u)),
         "memory line without an estimate: {mem}"
     );
-    assert!(mem.ends_with("ok"), "the demo should fit in memory: {mem}");
+    assert!(
+        mem.ends_with("ok"),
+        "the example should fit in memory: {mem}"
+    );
     let units = s
         .lines()
         .find(|l| l.starts_with("units"))

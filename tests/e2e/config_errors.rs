@@ -59,6 +59,23 @@ const REQUIRED: &[&str] = &[
     "max-delay-too-long",
     "keep-too-many",
     "thermal-trajectories",
+    // [memory] and [probes]
+    "memory-pattern-wrong-length",
+    "memory-rule-unknown",
+    "memory-realisation-unknown",
+    "memory-zz-conflict",
+    "memory-coupling-conflict",
+    "memory-matrix-not-symmetric",
+    "memory-projection-dependent",
+    "memory-scale-missing",
+    "memory-modes-detuning-negative",
+    "memory-relaxation-negative",
+    "probes-without-memory",
+    "probes-max-flips-too-large",
+    "probes-site-out-of-range",
+    "probes-threshold",
+    "probes-pattern-index",
+    "probes-erase-mixed-trajectories",
 ];
 
 /// One corpus file and what its error must say.

@@ -7,6 +7,9 @@
 //! - `check` — what `cavern check` reports (dimension, memory, units, cooperativity).
 //! - `run_output` — `cavern run`: the HDF5 layout, the summary table, quiet mode, determinism,
 //!   the truncation warning and output-path errors.
+//! - `recall` — `[memory]` and `[probes]`: the couplings and spectrum `check` prints, the
+//!   `/memory` and `/recall` groups recomputed with NumPy, the recall table, erased probes, the
+//!   classical limit of the quantum network.
 //! - `scipy_reference` — a 2-spin + 1-mode run against an independent SciPy propagation.
 //! - `steady_state` — `[steady_state]`: analytic steady states, relaxation rates, non-uniqueness.
 //! - `compare` — `cavern compare`: zero differences against itself, the analytic changes when
@@ -23,6 +26,7 @@ mod check;
 mod compare;
 mod config_errors;
 mod plot;
+mod recall;
 mod run_output;
 mod scan;
 mod scan_slurm;

@@ -342,8 +342,8 @@ fn run_and_compare(sb: &Sandbox, config: &Path, e: &Expect) -> FileSummary {
     file
 }
 
-fn demo() -> std::path::PathBuf {
-    repo().join("demo-data").join("ring4.toml")
+fn resonator_ring() -> std::path::PathBuf {
+    repo().join("configs").join("ring4-resonator.toml")
 }
 
 fn row<'a>(f: &'a FileSummary, name: &str, label: &str) -> &'a Row {
@@ -354,11 +354,11 @@ fn row<'a>(f: &'a FileSummary, name: &str, label: &str) -> &'a Row {
 }
 
 #[test]
-fn demo_result_file_matches_layout_and_summary_table() {
+fn resonator_ring_result_file_matches_layout_and_summary_table() {
     let sb = Sandbox::new();
     let file = run_and_compare(
         &sb,
-        &demo(),
+        &resonator_ring(),
         &Expect {
             time_unit: "us",
             frequency_unit: "MHz",
@@ -474,7 +474,7 @@ fn quiet_run_prints_nothing_and_still_writes_the_file() {
     let sb = Sandbox::new();
     let out = sb.cavern([
         "run".as_ref(),
-        demo().as_os_str(),
+        resonator_ring().as_os_str(),
         "--quiet".as_ref(),
         "-o".as_ref(),
         "quiet.h5".as_ref(),

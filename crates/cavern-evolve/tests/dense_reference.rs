@@ -202,6 +202,7 @@ fn full_network_matches_exact_dense_propagation() {
                     (re(1.0), &mm(&ad, &sm[i], d)),
                 ]),
                 CouplingForm::Dipole => mm(&x, &sx[i], d),
+                CouplingForm::Longitudinal => mm(&x, &sz[i], d),
             };
             c = lin(&[(re(1.0), &c), (re(gs[i]), &t)]);
         }
@@ -216,7 +217,11 @@ fn full_network_matches_exact_dense_propagation() {
     let (dt, samples) = (0.4, 11);
     let times: Vec<f64> = (0..samples).map(|k| dt * k as f64).collect();
 
-    for form in [CouplingForm::Exchange, CouplingForm::Dipole] {
+    for form in [
+        CouplingForm::Exchange,
+        CouplingForm::Dipole,
+        CouplingForm::Longitudinal,
+    ] {
         let net = Network {
             sites: s
                 .iter()

@@ -24,7 +24,9 @@
 //! jump operators √(κ(1+n_th)) a, √(κ n_th) a†, √γ σ⁻, √(γφ/2) σᶻ, √P σ⁺
 //! ```
 
+pub mod effective;
 pub mod envelope;
+pub mod memory;
 pub mod network;
 pub mod op;
 pub mod space;
@@ -32,7 +34,8 @@ pub mod state;
 
 pub use envelope::Envelope;
 pub use network::{
-    Channel, CouplingForm, DrivenTerm, JumpOp, MasterEquation, ModeParams, Network, SiteParams,
+    Channel, CouplingForm, DrivenTerm, FieldRelaxation, JumpOp, MasterEquation, ModeParams,
+    Network, SiteParams,
 };
 pub use op::SparseOp;
 pub use space::{FactorKind, Space};

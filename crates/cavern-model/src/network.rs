@@ -60,6 +60,60 @@ pub enum CouplingForm {
     Exchange,
     /// Full dipole (Rabi / Dicke): g(a + a†)σˣ.
     Dipole,
+    /// Longitudinal (dispersive-shift-free, "σᶻ") coupling: g(a + a†)σᶻ. It conserves every σᶻᵢ;
+    /// a mode displaced by the spins' configuration mediates a zz interaction
+    /// (see [`crate::memory::mediated_zz`]).
+    Longitudinal,
+}
+
+impl CouplingForm {
+    /// Short description with the formula, e.g. `longitudinal g(a + a†)σᶻ`.
+    pub fn describe(&self) -> &'static str {
+        match self {
+            CouplingForm::Exchange => "exchange g(aσ⁺ + a†σ⁻)",
+            CouplingForm::Dipole => "dipole g(a + a†)σˣ",
+            CouplingForm::Longitudinal => "longitudinal g(a + a†)σᶻ",
+        }
+    }
+}
+
+/// Local-field ("Glauber") spin relaxation: per site i the jump operators
+/// L↑ᵢ = √γ_G σ⁺ᵢ w↑(ĥᵢ)^½ and L↓ᵢ = √γ_G σ⁻ᵢ w↓(ĥᵢ)^½, where ĥᵢ = −Σⱼ Jᶻᵢⱼ σᶻⱼ is the
+/// diagonal operator of the local field the other spins exert through [`Network::zz`] (flipping
+/// site i up changes the zz energy by −2hᵢ), w↑(h) = 1/(1 + e^{−2h/T}) and
+/// w↓(h) = 1/(1 + e^{2h/T}). At T = 0, w↑ is a step function (1 for h > 0, 0 for h < 0) with
+/// w = ½ at h = 0 (|h| ≤ 1e-12 Σⱼ|Jᶻᵢⱼ| counts as 0).
+///
+/// The diagonal of ρ then obeys the classical Glauber master equation (Glauber, J. Math. Phys.
+/// 4, 294 (1963)); the open-quantum Hopfield generalisation is Rotondo et al., J. Phys. A 51,
+/// 115301 (2018). The local field uses the static zz matrix (the zz envelope does not enter).
+#[derive(Clone, Copy, Debug, PartialEq, Default)]
+pub struct FieldRelaxation {
+    /// Rate γ_G (angular, ≥ 0).
+    pub rate: f64,
+    /// Temperature k_B T/ħ (angular, ≥ 0; 0 allowed).
+    pub temperature: f64,
+}
+
+impl FieldRelaxation {
+    /// Glauber weight w↑(h) = 1/(1 + e^{−2h/T}) of flipping up in local field h (w↓(h) = w↑(−h));
+    /// `tie` is the magnitude below which h counts as 0 at T = 0.
+    pub fn weight_up(&self, h: f64, tie: f64) -> f64 {
+        glauber_up(h, self.temperature, tie)
+    }
+}
+
+/// w↑(h) = 1/(1 + e^{−2h/T}); at T = 0 a step with ½ for |h| ≤ `tie`.
+pub fn glauber_up(h: f64, temperature: f64, tie: f64) -> f64 {
+    if temperature > 0.0 {
+        1.0 / (1.0 + (-2.0 * h / temperature).exp())
+    } else if h.abs() <= tie {
+        0.5
+    } else if h > 0.0 {
+        1.0
+    } else {
+        0.0
+    }
 }
 
 /// A driven-dissipative spin–cavity network, in angular units.
@@ -87,6 +141,8 @@ pub struct Network {
     pub flip_flop_envelope: Envelope,
     /// Envelope f(t) multiplying every site's Rabi frequency Ωᵢ.
     pub rabi_envelope: Envelope,
+    /// Optional local-field (Glauber) relaxation of the sites, driven by [`Network::zz`].
+    pub field_relaxation: Option<FieldRelaxation>,
 }
 
 /// Which physical process a jump operator describes (used to label output channels).
@@ -102,6 +158,13 @@ pub enum Channel {
     SiteDephasing(usize),
     /// Incoherent pumping of site i: √P σ⁺.
     SitePump(usize),
+    /// Local-field relaxation of site i upwards: √γ_G σ⁺ w↑(ĥᵢ)^½ ([`FieldRelaxation`]).
+    SiteRelaxUp(usize),
+    /// Local-field relaxation of site i downwards: √γ_G σ⁻ w↓(ĥᵢ)^½ ([`FieldRelaxation`]).
+    SiteRelaxDown(usize),
+    /// Collective dephasing left by adiabatically eliminating mode m
+    /// ([`crate::effective`]): √κ Σᵢ gᵢσᶻᵢ/|Δ − iκ/2|.
+    MediatedDephasing(usize),
 }
 
 impl Channel {
@@ -113,6 +176,9 @@ impl Channel {
             Channel::SiteDecay(i) => format!("site{i}-decay"),
             Channel::SiteDephasing(i) => format!("site{i}-dephasing"),
             Channel::SitePump(i) => format!("site{i}-pump"),
+            Channel::SiteRelaxUp(i) => format!("site{i}-relax-up"),
+            Channel::SiteRelaxDown(i) => format!("site{i}-relax-down"),
+            Channel::MediatedDephasing(m) => format!("mode{m}-mediated-dephasing"),
         }
     }
 }
@@ -122,8 +188,10 @@ impl Channel {
 pub struct JumpOp {
     /// The physical channel.
     pub channel: Channel,
-    /// The channel's physical rate (κ(1+n_th), κn_th, γ, γφ or P). `op` carries its square root,
-    /// except for dephasing, where `op` = √(γφ/2) σᶻ.
+    /// The channel's physical rate (κ(1+n_th), κn_th, γ, γφ, P, γ_G, or κ for a mediated
+    /// dephasing). `op` carries its square root, except for dephasing, where `op` = √(γφ/2) σᶻ,
+    /// and for the field relaxation and mediated dephasing, whose `op` also carries the
+    /// state-dependent factor.
     pub rate: f64,
     /// L, including √rate.
     pub op: SparseOp,
@@ -223,6 +291,12 @@ impl Network {
                 v.push(Channel::SitePump(i));
             }
         }
+        if self.field_relaxation.is_some_and(|f| f.rate > 0.0) {
+            for i in 0..self.sites.len() {
+                v.push(Channel::SiteRelaxUp(i));
+                v.push(Channel::SiteRelaxDown(i));
+            }
+        }
         for (m, p) in self.modes.iter().enumerate() {
             if p.loss * (1.0 + p.thermal) > 0.0 {
                 v.push(Channel::ModeLoss(m));
@@ -256,6 +330,10 @@ impl Network {
             check_rate(format!("mode {k} loss"), md.loss)?;
             check_rate(format!("mode {k} thermal occupation"), md.thermal)?;
             check_finite(format!("mode {k} drive"), md.drive)?;
+        }
+        if let Some(fr) = &self.field_relaxation {
+            check_rate("field relaxation rate".into(), fr.rate)?;
+            check_rate("field relaxation temperature".into(), fr.temperature)?;
         }
         let shape_ok = self.coupling.is_empty()
             || (self.coupling.len() == n && self.coupling.iter().all(|r| r.len() == m));
@@ -377,6 +455,21 @@ impl Network {
                 }
             }
         }
+        if let Some(fr) = self.field_relaxation.filter(|f| f.rate > 0.0) {
+            for i in 0..self.sites.len() {
+                let [up, down] = self.field_relaxation_ops(&space, i, fr);
+                jumps.push(JumpOp {
+                    channel: Channel::SiteRelaxUp(i),
+                    rate: fr.rate,
+                    op: up,
+                });
+                jumps.push(JumpOp {
+                    channel: Channel::SiteRelaxDown(i),
+                    rate: fr.rate,
+                    op: down,
+                });
+            }
+        }
         for (m, p) in self.modes.iter().enumerate() {
             let a = &modes_a[m];
             let ad = a.adjoint();
@@ -426,23 +519,15 @@ impl Network {
                         let sx = SparseOp::local(&space, space.site_factor(i), &local::pauli_x());
                         a.plus(&a.adjoint()).times(&sx)
                     }
+                    CouplingForm::Longitudinal => a.plus(&a.adjoint()).times(&sigma_z[i]),
                 };
                 coupling.extend(term.scaled(real(g)).triplets());
             }
         }
         if !coupling.is_empty() {
-            let label = match self.coupling_form {
-                CouplingForm::Exchange => "spin–mode exchange g(aσ⁺ + a†σ⁻)",
-                CouplingForm::Dipole => "spin–mode dipole g(a + a†)σˣ",
-            };
+            let label = format!("spin–mode {}", self.coupling_form.describe());
             let op = SparseOp::from_triplets(d, coupling);
-            push_term(
-                &mut h0,
-                &mut driven,
-                &self.coupling_envelope,
-                label.into(),
-                op,
-            );
+            push_term(&mut h0, &mut driven, &self.coupling_envelope, label, op);
         }
         let n = self.sites.len();
         if !self.zz.is_empty() {
@@ -496,6 +581,47 @@ impl Network {
             driven,
             jumps,
         })
+    }
+}
+
+impl Network {
+    /// Local field hᵢ = −Σⱼ Jᶻᵢⱼ sⱼ of basis state `r` (spins read from the basis index).
+    fn zz_field(&self, space: &Space, r: usize, i: usize) -> f64 {
+        match self.zz.get(i) {
+            Some(row) => -row
+                .iter()
+                .enumerate()
+                .filter(|&(j, _)| j != i)
+                .map(|(j, &jz)| jz * space.spin(r, j))
+                .sum::<f64>(),
+            None => 0.0,
+        }
+    }
+
+    /// The up and down field-relaxation jump operators of site i, including √γ_G.
+    fn field_relaxation_ops(&self, space: &Space, i: usize, fr: FieldRelaxation) -> [SparseOp; 2] {
+        let d = space.dim();
+        let s = space.stride(space.site_factor(i));
+        let tie = self
+            .zz
+            .get(i)
+            .map_or(0.0, |row| 1e-12 * row.iter().map(|x| x.abs()).sum::<f64>());
+        let (mut up, mut down) = (Vec::new(), Vec::new());
+        for r in 0..d {
+            let h = self.zz_field(space, r, i);
+            if space.digit(r, space.site_factor(i)) == 0 {
+                // |r⟩ has site i in |g⟩: σ⁺ maps it to |r + s⟩
+                let w = fr.weight_up(h, tie);
+                up.push((r + s, r, real((fr.rate * w).sqrt())));
+            } else {
+                let w = fr.weight_up(-h, tie);
+                down.push((r - s, r, real((fr.rate * w).sqrt())));
+            }
+        }
+        [
+            SparseOp::from_triplets(d, up),
+            SparseOp::from_triplets(d, down),
+        ]
     }
 }
 
@@ -584,7 +710,11 @@ mod tests {
 
     #[test]
     fn hamiltonian_is_hermitian_and_jumps_carry_rates() {
-        for form in [CouplingForm::Exchange, CouplingForm::Dipole] {
+        for form in [
+            CouplingForm::Exchange,
+            CouplingForm::Dipole,
+            CouplingForm::Longitudinal,
+        ] {
             let mut net = one_site_one_mode();
             net.coupling_form = form;
             let me = net.build().unwrap();

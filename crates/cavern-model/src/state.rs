@@ -1,4 +1,5 @@
-//! Initial states: product states of sites and modes, pure or (with thermal modes) mixed.
+//! Initial states: product states of sites and modes, pure or mixed (thermal modes, and
+//! maximally mixed sites through [`MixedProductState`]).
 
 use crate::{ModelError, Space, C64};
 
@@ -27,6 +28,39 @@ impl SpinInit {
     pub fn amplitudes(&self) -> [C64; 2] {
         let (s, c) = (self.theta / 2.0).sin_cos();
         [C64::from_polar(s, self.phi), C64::new(c, 0.0)]
+    }
+
+    /// Local density matrix |ψ⟩⟨ψ| (row-major 2×2 in the (g, e) basis).
+    pub fn density(&self) -> [C64; 4] {
+        let a = self.amplitudes();
+        [
+            a[0] * a[0].conj(),
+            a[0] * a[1].conj(),
+            a[1] * a[0].conj(),
+            a[1] * a[1].conj(),
+        ]
+    }
+}
+
+/// Initial state of one site that may be mixed.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum SiteInit {
+    /// A pure state on the Bloch sphere.
+    Pure(SpinInit),
+    /// The maximally mixed state ½𝟙 (Bloch vector 0: ⟨σˣ⟩ = ⟨σʸ⟩ = ⟨σᶻ⟩ = 0), e.g. an erased bit.
+    MaximallyMixed,
+}
+
+impl SiteInit {
+    /// Local density matrix (row-major 2×2 in the (g, e) basis).
+    pub fn density(&self) -> [C64; 4] {
+        match self {
+            SiteInit::Pure(s) => s.density(),
+            SiteInit::MaximallyMixed => {
+                let (h, z) = (C64::new(0.5, 0.0), C64::new(0.0, 0.0));
+                [h, z, z, h]
+            }
+        }
     }
 }
 
@@ -208,20 +242,7 @@ impl ProductState {
     /// is invalid for its truncation.
     pub fn density(&self, space: &Space) -> Result<Vec<C64>, ModelError> {
         self.check_len(space)?;
-        let mut rho = vec![C64::new(1.0, 0.0)];
-        let mut n = 1;
-        for s in &self.spins {
-            let a = s.amplitudes();
-            let local: Vec<C64> = (0..4).map(|k| a[k / 2] * a[k % 2].conj()).collect();
-            rho = kron(&rho, n, &local, 2);
-            n *= 2;
-        }
-        for (m, md) in self.modes.iter().enumerate() {
-            let levels = space.mode_levels(m);
-            rho = kron(&rho, n, &md.density(levels, m)?, levels);
-            n *= levels;
-        }
-        Ok(rho)
+        product_density(space, self.spins.iter().map(SpinInit::density), &self.modes)
     }
 
     /// Check the state against `space` without building the d×d matrix (site and mode counts,
@@ -259,6 +280,82 @@ impl ProductState {
     }
 }
 
+/// ⊗ᵢ ρᵢ ⊗ₘ ρₘ from local site density matrices and mode states (counts already checked).
+fn product_density(
+    space: &Space,
+    sites: impl Iterator<Item = [C64; 4]>,
+    modes: &[ModeInit],
+) -> Result<Vec<C64>, ModelError> {
+    let mut rho = vec![C64::new(1.0, 0.0)];
+    let mut n = 1;
+    for local in sites {
+        rho = kron(&rho, n, &local, 2);
+        n *= 2;
+    }
+    for (m, md) in modes.iter().enumerate() {
+        let levels = space.mode_levels(m);
+        rho = kron(&rho, n, &md.density(levels, m)?, levels);
+        n *= levels;
+    }
+    Ok(rho)
+}
+
+/// A product state whose sites may be mixed: ⊗ᵢ ρᵢ ⊗ₘ ρₘ with ρᵢ pure or ½𝟙.
+#[derive(Clone, Debug, PartialEq)]
+pub struct MixedProductState {
+    /// One entry per site.
+    pub sites: Vec<SiteInit>,
+    /// One entry per mode.
+    pub modes: Vec<ModeInit>,
+}
+
+impl From<ProductState> for MixedProductState {
+    fn from(p: ProductState) -> Self {
+        Self {
+            sites: p.spins.into_iter().map(SiteInit::Pure).collect(),
+            modes: p.modes,
+        }
+    }
+}
+
+impl MixedProductState {
+    /// The pure product state, when no site is mixed (modes may still be thermal).
+    pub fn as_product(&self) -> Option<ProductState> {
+        let spins = self
+            .sites
+            .iter()
+            .map(|s| match s {
+                SiteInit::Pure(p) => Some(*p),
+                SiteInit::MaximallyMixed => None,
+            })
+            .collect::<Option<Vec<_>>>()?;
+        Some(ProductState {
+            spins,
+            modes: self.modes.clone(),
+        })
+    }
+
+    /// Dense density matrix ρ (row-major d×d) in the ordering of [`Space`].
+    ///
+    /// # Errors
+    /// As [`ProductState::density`].
+    pub fn density(&self, space: &Space) -> Result<Vec<C64>, ModelError> {
+        if self.sites.len() != space.n_sites() || self.modes.len() != space.n_modes() {
+            return Err(ModelError::Shape {
+                what: "the initial state".into(),
+                rows: space.n_sites(),
+                cols: space.n_modes(),
+                got: format!(
+                    "{} site states and {} mode states",
+                    self.sites.len(),
+                    self.modes.len()
+                ),
+            });
+        }
+        product_density(space, self.sites.iter().map(SiteInit::density), &self.modes)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -286,6 +383,40 @@ mod tests {
         }
         let tr: f64 = (0..d).map(|r| rho[r * d + r].re).sum();
         assert!((tr - 1.0).abs() < 1e-14);
+    }
+
+    #[test]
+    fn a_maximally_mixed_site_has_purity_one_half_and_no_polarisation() {
+        // ½𝟙 ⊗ |e⟩⟨e|: Tr ρ = 1, Tr ρ² = ½ (the textbook purity of a maximally mixed qubit),
+        // ⟨σᶻ⟩ = 0 on site 0; the pure site keeps ⟨σᶻ⟩ = +1
+        let space = Space::new(2, &[]).unwrap();
+        let st = MixedProductState {
+            sites: vec![
+                SiteInit::MaximallyMixed,
+                SiteInit::Pure(SpinInit::from_sign(1)),
+            ],
+            modes: vec![],
+        };
+        let rho = st.density(&space).unwrap();
+        let d = space.dim();
+        let tr: f64 = (0..d).map(|r| rho[r * d + r].re).sum();
+        let purity: f64 = rho.iter().map(|z| z.norm_sqr()).sum();
+        assert!((tr - 1.0).abs() < 1e-15 && (purity - 0.5).abs() < 1e-15);
+        let sz = |i| {
+            (0..d)
+                .map(|r| space.spin(r, i) * rho[r * d + r].re)
+                .sum::<f64>()
+        };
+        assert_eq!((sz(0), sz(1)), (0.0, 1.0));
+        assert!(st.as_product().is_none());
+        // without mixed sites it is the ordinary product state
+        let pure = ProductState {
+            spins: vec![SpinInit::from_sign(-1), SpinInit::from_sign(1)],
+            modes: vec![],
+        };
+        let m = MixedProductState::from(pure.clone());
+        assert_eq!(m.density(&space).unwrap(), pure.density(&space).unwrap());
+        assert_eq!(m.as_product(), Some(pure));
     }
 
     #[test]

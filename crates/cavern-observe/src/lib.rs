@@ -17,6 +17,8 @@
 //! assert_eq!(obs::pattern_overlap(&[1.0, -1.0], &[1, -1]), 1.0);
 //! ```
 
+pub mod classical;
+
 use cavern_model::op::local;
 use cavern_model::{Space, C64};
 
