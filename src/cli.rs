@@ -136,7 +136,11 @@ fn budget_cmd(inputs: &[String], out_dir: &Path, det: &DetectorArgs) -> Result<(
     })?;
     let mut loaded = Vec::new();
     for a in inputs {
-        loaded.push(compare::resolve(a, out_dir, &say)?);
+        let taken: Vec<PathBuf> = loaded
+            .iter()
+            .map(|i: &compare::Input| i.file.clone())
+            .collect();
+        loaded.push(compare::resolve(a, out_dir, &taken, &say)?);
     }
     let all: Vec<_> = loaded
         .iter()

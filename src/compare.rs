@@ -539,11 +539,18 @@ fn select_point(root: &Group, file: &Path, spec: &str) -> Result<(usize, String)
 }
 
 /// Load one command-line input (config, result file or scan point), running a config whose
-/// result is not found.
+/// result is not found. `taken` lists the result files of earlier inputs: a new run never
+/// overwrites one of them (two configs with the same file name in different folders get
+/// `<stem>.h5` and `<stem>-2.h5`).
 ///
 /// # Errors
 /// Bad input (missing file, bad config, unknown axis) or a failed run.
-pub fn resolve(arg: &str, out_dir: &Path, say: &dyn Fn(&str)) -> Result<Input, AppError> {
+pub fn resolve(
+    arg: &str,
+    out_dir: &Path,
+    taken: &[PathBuf],
+    say: &dyn Fn(&str),
+) -> Result<Input, AppError> {
     let (path_text, spec) = match arg.rsplit_once('@') {
         Some((p, s)) if !Path::new(arg).exists() => (p, Some(s)),
         _ => (arg, None),
@@ -583,6 +590,22 @@ pub fn resolve(arg: &str, out_dir: &Path, say: &dyn Fn(&str)) -> Result<Input, A
     if let Some(dir) = path.parent() {
         candidates.push(dir.join(&name));
     }
+    // results of same-named configs from earlier comparisons (`<stem>-2.h5`, …)
+    if let Ok(entries) = std::fs::read_dir(out_dir) {
+        let mut more: Vec<PathBuf> = entries
+            .flatten()
+            .map(|e| e.path())
+            .filter(|p| {
+                p.file_name().and_then(|n| n.to_str()).is_some_and(|n| {
+                    n.strip_prefix(&format!("{stem}-"))
+                        .and_then(|r| r.strip_suffix(".h5"))
+                        .is_some_and(|k| k.parse::<u32>().is_ok())
+                })
+            })
+            .collect();
+        more.sort();
+        candidates.extend(more);
+    }
     for c in &candidates {
         if !c.is_file() {
             continue;
@@ -602,7 +625,12 @@ pub fn resolve(arg: &str, out_dir: &Path, say: &dyn Fn(&str)) -> Result<Input, A
             });
         }
     }
-    let target = out_dir.join(&name);
+    let mut target = out_dir.join(&name);
+    let mut k = 2;
+    while taken.contains(&target) {
+        target = out_dir.join(format!("{stem}-{k}.h5"));
+        k += 1;
+    }
     say(&format!(
         "{arg}: running (no result with this config hash found) → {}\n",
         target.display()
@@ -780,7 +808,8 @@ pub fn compare(req: &CompareRequest, say: &dyn Fn(&str)) -> Result<(), AppError>
     };
     let mut inputs = Vec::new();
     for a in &req.inputs {
-        inputs.push(resolve(a, &req.out_dir, &quiet_say)?);
+        let taken: Vec<PathBuf> = inputs.iter().map(|i: &Input| i.file.clone()).collect();
+        inputs.push(resolve(a, &req.out_dir, &taken, &quiet_say)?);
     }
     unique_labels(&mut inputs);
     let all: Vec<Vec<Metric>> = inputs.iter().map(|i| metrics(&i.tree, i.point)).collect();

@@ -269,6 +269,58 @@ mod tests {
     }
 
     #[test]
+    fn reads_a_file_written_by_h5py_with_other_types() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let path = dir.path().join("py.h5");
+        let script = r#"
+import sys, h5py, numpy as np
+with h5py.File(sys.argv[1], "w") as f:
+    f.create_dataset("f32", data=np.array([1.5, -2.25], dtype=np.float32))
+    f.create_dataset("i32", data=np.array([[1, -2], [3, 4]], dtype=np.int32))
+    f.create_dataset("u8", data=np.array([0, 255], dtype=np.uint8))
+    f.create_dataset("errors", data=np.array(["", "diverged"], dtype=h5py.string_dtype()))
+    f.attrs["fixed"] = np.bytes_("ascii text")
+    f.attrs["n"] = np.int16(-7)
+    f.attrs["ratios"] = np.array([0.5, 0.25], dtype=np.float32)
+    g = f.create_group("g")
+    g.attrs["names"] = np.array(["a", "b"], dtype=h5py.string_dtype())
+"#;
+        let out = std::process::Command::new("python3")
+            .args(["-c", script])
+            .arg(&path)
+            .output()
+            .expect("python3 with h5py and numpy (pip install h5py numpy)");
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        let root = read(&path).expect("read");
+        let ds = |n: &str| root.get_dataset(n).unwrap_or_else(|| panic!("{n}"));
+        assert_eq!(ds("f32").data, Data::F64(vec![1.5, -2.25]));
+        assert_eq!(
+            (ds("i32").shape.clone(), ds("i32").data.clone()),
+            (vec![2, 2], Data::I64(vec![1, -2, 3, 4]))
+        );
+        assert_eq!(ds("u8").data, Data::I64(vec![0, 255]));
+        assert_eq!(ds("errors").data, Data::Str("\ndiverged".into()));
+        let attr = |n: &str| {
+            root.attrs()
+                .iter()
+                .find(|(k, _)| k == n)
+                .map(|(_, v)| v.clone())
+        };
+        assert_eq!(attr("fixed"), Some(AttrValue::Str("ascii text".into())));
+        assert_eq!(attr("n"), Some(AttrValue::I64(-7)));
+        assert_eq!(attr("ratios"), Some(AttrValue::F64s(vec![0.5, 0.25])));
+        let g = root.get_group("g").expect("group g");
+        assert_eq!(
+            g.attrs()[0].1,
+            AttrValue::Strs(vec!["a".into(), "b".into()])
+        );
+    }
+
+    #[test]
     fn missing_and_garbage_files_are_errors_naming_the_path() {
         let dir = tempfile::tempdir().expect("temp dir");
         let missing = dir.path().join("nope.h5");

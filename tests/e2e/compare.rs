@@ -329,3 +329,27 @@ fn recall_rows_and_scan_points_are_compared() {
         bad.describe()
     );
 }
+
+#[test]
+fn same_named_configs_in_different_folders_keep_separate_results() {
+    let sb = Sandbox::new();
+    std::fs::create_dir_all(sb.join("x")).unwrap();
+    std::fs::create_dir_all(sb.join("y")).unwrap();
+    let a = sb.write("x/run.toml", &cavity_config(1.0));
+    let b = sb.write("y/run.toml", &cavity_config(2.0));
+    let out = compare(&sb, &[&a, &b], &["--no-figures"]);
+    out.assert_success();
+    assert!(sb.join("cmp/run.h5").is_file() && sb.join("cmp/run-2.h5").is_file());
+    let rows = read_csv(&sb.join("cmp"));
+    let r = find(&rows, "spectral_gap", "", "run (2)");
+    assert!(close(r.ratio.unwrap(), 2.0, 1e-7, 0.0), "{r:?}");
+    // a second comparison finds both results again instead of running
+    let again = compare(&sb, &[&a, &b], &["--no-figures"]);
+    again.assert_success();
+    assert_eq!(
+        again.stdout.matches("reusing").count(),
+        2,
+        "{}",
+        again.describe()
+    );
+}
