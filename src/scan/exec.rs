@@ -754,3 +754,55 @@ pub fn estimate(scan: &Scan, sp: &Split) -> Result<Estimate, AppError> {
         how,
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn survey(max_memory: u128, allowed: Option<u128>) -> Survey {
+        Survey {
+            layout: Layout {
+                series: Vec::new(),
+                steady: Vec::new(),
+                stderr: false,
+                n_times: 2,
+                method: Method::DensityMatrix,
+            },
+            max_dim: 4,
+            max_memory,
+            allowed,
+        }
+    }
+
+    #[test]
+    fn split_respects_overrides_points_and_memory() {
+        let c = cores();
+        let s = split(&survey(1, None), 1000, None, None);
+        assert_eq!((s.parallel, s.threads), (c, 1));
+        let s = split(&survey(1, None), 1, None, None);
+        assert_eq!((s.parallel, s.threads), (1, c));
+        // memory for one point only
+        let s = split(&survey(100, Some(150)), 1000, None, None);
+        assert_eq!((s.parallel, s.memory_cap), (1, 1));
+        let s = split(&survey(1, None), 1000, Some(3), Some(5));
+        assert_eq!((s.parallel, s.threads), (3, 5));
+    }
+
+    #[test]
+    fn shards_partition_the_points() {
+        for n in 1..6 {
+            for i in 0..40 {
+                let owners = (1..=n).filter(|&k| in_shard(i, (k, n))).count();
+                assert_eq!(owners, 1);
+            }
+        }
+        assert_eq!(
+            journal_path(Path::new("d/out.h5"), (2, 4)),
+            PathBuf::from("d/out.h5.shard-2-of-4.journal")
+        );
+        assert_eq!(
+            journal_path(Path::new("out.h5"), (1, 1)),
+            PathBuf::from("out.h5.journal")
+        );
+    }
+}
