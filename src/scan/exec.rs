@@ -720,7 +720,8 @@ fn calibrate_point(scan: &Scan, index: usize, threads: usize) -> Result<(f64, f6
 /// Estimate the total time: evolve the first, middle and last points over a growing fraction of
 /// the time span (from 1/64, ×4 until it takes 0.2 s or the whole span), extrapolate linearly in
 /// the time span (and in the number of trajectories), add the steady-state solve, and divide the
-/// sum over all points by the number of concurrent points.
+/// sum over all points by the number of concurrent points. Points after the calibration has taken
+/// 5 s are skipped.
 ///
 /// # Errors
 /// A calibration point that fails (it would fail in the scan too).
@@ -730,11 +731,16 @@ pub fn estimate(scan: &Scan, sp: &Split) -> Result<Estimate, AppError> {
     picks.dedup();
     let mut secs = Vec::new();
     let mut fracs = Vec::new();
+    let started = Instant::now();
     for &i in &picks {
         let (s, f) = calibrate_point(scan, i, sp.threads)?;
         secs.push(s);
         fracs.push(f);
+        if started.elapsed() > Duration::from_secs(5) {
+            break; // slow points: `check` should stay quick, one or two calibrations must do
+        }
     }
+    picks.truncate(secs.len());
     let per_point = secs.iter().sum::<f64>() / secs.len() as f64;
     let total = per_point * n as f64 / sp.parallel as f64;
     let list: Vec<String> = picks.iter().map(|i| i.to_string()).collect();
