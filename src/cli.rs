@@ -213,6 +213,27 @@ fn check(file: &Path) -> Result<(), AppError> {
     Ok(())
 }
 
+/// The output file: `out`, or the config's name with extension .h5 in the current directory;
+/// refused (exit 2) when it is a directory or its directory does not exist.
+pub(crate) fn output_path(file: &Path, out: Option<PathBuf>) -> Result<PathBuf, AppError> {
+    let out = out.unwrap_or_else(|| default_output(file));
+    if out.is_dir() {
+        return Err(AppError::Input(format!(
+            "the output path {} is a directory; give a file name",
+            out.display()
+        )));
+    }
+    if let Some(parent) = out.parent().filter(|p| !p.as_os_str().is_empty()) {
+        if !parent.is_dir() {
+            return Err(AppError::Input(format!(
+                "the output directory {} does not exist",
+                parent.display()
+            )));
+        }
+    }
+    Ok(out)
+}
+
 fn default_output(file: &Path) -> PathBuf {
     let stem = file
         .file_stem()
@@ -232,21 +253,7 @@ fn run_cmd(
     if let Some(t) = threads {
         plan.solver.threads = t;
     }
-    let out = out.unwrap_or_else(|| default_output(file));
-    if out.is_dir() {
-        return Err(AppError::Input(format!(
-            "the output path {} is a directory; give a file name",
-            out.display()
-        )));
-    }
-    if let Some(parent) = out.parent().filter(|p| !p.as_os_str().is_empty()) {
-        if !parent.is_dir() {
-            return Err(AppError::Input(format!(
-                "the output directory {} does not exist",
-                parent.display()
-            )));
-        }
-    }
+    let out = output_path(file, out)?;
     // the solver choice is decided (and the memory guard passed) before anything is printed
     let space = plan
         .network

@@ -32,6 +32,9 @@ use crate::AppError;
 use sha2::{Digest, Sha256};
 use std::path::Path;
 
+/// The integrator, as the `/solver` attribute `integrator` names it.
+pub const INTEGRATOR: &str = "Dormand-Prince 5(4), PI step control, 4th-order dense output";
+
 /// Hex SHA-256 of the config text.
 pub fn config_hash(text: &str) -> String {
     let digest = Sha256::digest(text.as_bytes());
@@ -133,10 +136,7 @@ pub fn tree(plan: &RunPlan, res: &RunResult) -> Group {
         .attr("method", res.choice.method.name())
         .attr("method_requested", res.choice.requested.name())
         .attr("method_reason", res.choice.reason.as_str())
-        .attr(
-            "integrator",
-            "Dormand-Prince 5(4), PI step control, 4th-order dense output",
-        )
+        .attr("integrator", INTEGRATOR)
         .attr("rtol", plan.solver.rtol)
         .attr("atol", plan.solver.atol)
         .attr("max_step", plan.solver.max_step)

@@ -113,14 +113,6 @@ fn shard(arg: Option<&str>) -> Result<((usize, usize), Option<String>), AppError
     }
 }
 
-fn default_output(file: &Path) -> PathBuf {
-    let stem = file
-        .file_stem()
-        .map(|s| s.to_os_string())
-        .unwrap_or_else(|| "cavern".into());
-    PathBuf::from(stem).with_extension("h5")
-}
-
 /// `cavern scan`: returns the number of failed points.
 ///
 /// # Errors
@@ -128,21 +120,7 @@ fn default_output(file: &Path) -> PathBuf {
 pub fn scan(a: ScanArgs) -> Result<usize, AppError> {
     let sc = load(&a.file)?;
     let (shard, from_env) = shard(a.shard.as_deref())?;
-    let output = a.output.unwrap_or_else(|| default_output(&a.file));
-    if output.is_dir() {
-        return Err(AppError::Input(format!(
-            "the output path {} is a directory; give a file name",
-            output.display()
-        )));
-    }
-    if let Some(parent) = output.parent().filter(|p| !p.as_os_str().is_empty()) {
-        if !parent.is_dir() {
-            return Err(AppError::Input(format!(
-                "the output directory {} does not exist",
-                parent.display()
-            )));
-        }
-    }
+    let output = crate::cli::output_path(&a.file, a.output)?;
     if let (Some(why), false) = (&from_env, a.quiet) {
         eprintln!("scan: shard {}/{} from {why}", shard.0, shard.1);
     }

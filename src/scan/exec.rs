@@ -720,7 +720,8 @@ fn calibrate_point(scan: &Scan, index: usize, threads: usize) -> Result<(f64, f6
 /// Estimate the total time: evolve the first, middle and last points over a growing fraction of
 /// the time span (from 1/64, ×4 until it takes 0.2 s or the whole span), extrapolate linearly in
 /// the time span (and in the number of trajectories), add the steady-state solve, and divide the
-/// sum over all points by the number of concurrent points.
+/// sum over all points by the number of concurrent points. Points after the calibration has taken
+/// 5 s are skipped.
 ///
 /// # Errors
 /// A calibration point that fails (it would fail in the scan too).
@@ -730,11 +731,16 @@ pub fn estimate(scan: &Scan, sp: &Split) -> Result<Estimate, AppError> {
     picks.dedup();
     let mut secs = Vec::new();
     let mut fracs = Vec::new();
+    let started = Instant::now();
     for &i in &picks {
         let (s, f) = calibrate_point(scan, i, sp.threads)?;
         secs.push(s);
         fracs.push(f);
+        if started.elapsed() > Duration::from_secs(5) {
+            break; // slow points: `check` should stay quick, one or two calibrations must do
+        }
     }
+    picks.truncate(secs.len());
     let per_point = secs.iter().sum::<f64>() / secs.len() as f64;
     let total = per_point * n as f64 / sp.parallel as f64;
     let list: Vec<String> = picks.iter().map(|i| i.to_string()).collect();
@@ -753,4 +759,56 @@ pub fn estimate(scan: &Scan, sp: &Split) -> Result<Estimate, AppError> {
         total,
         how,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn survey(max_memory: u128, allowed: Option<u128>) -> Survey {
+        Survey {
+            layout: Layout {
+                series: Vec::new(),
+                steady: Vec::new(),
+                stderr: false,
+                n_times: 2,
+                method: Method::DensityMatrix,
+            },
+            max_dim: 4,
+            max_memory,
+            allowed,
+        }
+    }
+
+    #[test]
+    fn split_respects_overrides_points_and_memory() {
+        let c = cores();
+        let s = split(&survey(1, None), 1000, None, None);
+        assert_eq!((s.parallel, s.threads), (c, 1));
+        let s = split(&survey(1, None), 1, None, None);
+        assert_eq!((s.parallel, s.threads), (1, c));
+        // memory for one point only
+        let s = split(&survey(100, Some(150)), 1000, None, None);
+        assert_eq!((s.parallel, s.memory_cap), (1, 1));
+        let s = split(&survey(1, None), 1000, Some(3), Some(5));
+        assert_eq!((s.parallel, s.threads), (3, 5));
+    }
+
+    #[test]
+    fn shards_partition_the_points() {
+        for n in 1..6 {
+            for i in 0..40 {
+                let owners = (1..=n).filter(|&k| in_shard(i, (k, n))).count();
+                assert_eq!(owners, 1);
+            }
+        }
+        assert_eq!(
+            journal_path(Path::new("d/out.h5"), (2, 4)),
+            PathBuf::from("d/out.h5.shard-2-of-4.journal")
+        );
+        assert_eq!(
+            journal_path(Path::new("out.h5"), (1, 1)),
+            PathBuf::from("out.h5.journal")
+        );
+    }
 }

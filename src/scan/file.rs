@@ -254,10 +254,7 @@ pub fn tree(scan: &Scan, layout: &Layout, records: &BTreeMap<u64, &PointRecord>)
         .attr("mode_names", plan.mode_names.clone());
     root.group("solver")
         .attr("method", layout.method.name())
-        .attr(
-            "integrator",
-            "Dormand-Prince 5(4), PI step control, 4th-order dense output",
-        );
+        .attr("integrator", crate::output::INTEGRATOR);
     root.group("input")
         .dataset("config_toml", &[], Data::Str(scan.source.clone()));
     root

@@ -362,13 +362,24 @@ impl Journal {
         Self::open(path, None)
     }
 
-    /// Open an existing journal for appending, first cutting it to `valid_len` (discarding a torn
-    /// tail).
+    /// Open an existing journal for appending (locked against a second writer), first cutting it
+    /// to `valid_len` (discarding a torn tail).
     ///
     /// # Errors
     /// I/O errors.
     pub fn open(path: &Path, valid_len: Option<u64>) -> io::Result<Journal> {
         let file = OpenOptions::new().read(true).write(true).open(path)?;
+        // one writer per journal; the lock goes away with the process, even after kill -9
+        if let Err(e) = file.try_lock() {
+            return Err(match e {
+                std::fs::TryLockError::WouldBlock => io::Error::new(
+                    io::ErrorKind::WouldBlock,
+                    "another cavern process is running this scan (the journal is locked); \
+                     wait for it, or stop it first",
+                ),
+                std::fs::TryLockError::Error(e) => e,
+            });
+        }
         if let Some(n) = valid_len {
             if file.metadata()?.len() != n {
                 file.set_len(n)?;
@@ -436,6 +447,7 @@ mod tests {
         for i in 0..3 {
             j.append(&rec(i)).unwrap();
         }
+        drop(j);
         let full = std::fs::read(&path).unwrap();
         let c = read(&path).unwrap().unwrap();
         assert_eq!(c.header, header);
@@ -476,5 +488,10 @@ mod tests {
         let mut j = Journal::open(&path, Some(c.valid_len)).unwrap();
         j.append(&rec(2)).unwrap();
         assert_eq!(std::fs::read(&path).unwrap(), full);
+        // a second writer is refused while the first holds the journal
+        let e = Journal::open(&path, None).err().expect("locked");
+        assert_eq!(e.kind(), io::ErrorKind::WouldBlock);
+        drop(j);
+        assert!(Journal::open(&path, None).is_ok());
     }
 }

@@ -286,15 +286,7 @@ impl Scan {
     /// # Errors
     /// Every problem of the config or of the scan, located.
     pub fn load(path: &Path) -> Result<Option<Scan>, ConfigErrors> {
-        let text = std::fs::read_to_string(path).map_err(|e| {
-            ConfigErrors(vec![ConfigError {
-                file: path.to_path_buf(),
-                line: None,
-                key: String::new(),
-                message: format!("cannot read the config file: {e}"),
-            }])
-        })?;
-        Self::parse(path, &text)
+        Self::from_base(config::load(path)?)
     }
 
     /// As [`Scan::load`] for config text read from `path`.
@@ -302,7 +294,13 @@ impl Scan {
     /// # Errors
     /// As [`Scan::load`].
     pub fn parse(path: &Path, text: &str) -> Result<Option<Scan>, ConfigErrors> {
-        let base = config::parse(path, text)?;
+        Self::from_base(config::parse(path, text)?)
+    }
+
+    /// The scan of a resolved config (its `source` holds the text).
+    fn from_base(base: RunPlan) -> Result<Option<Scan>, ConfigErrors> {
+        let (path, text) = (base.path.clone(), base.source.clone());
+        let (path, text) = (path.as_path(), text.as_str());
         let im: ImDocument<String> = text.parse().map_err(|e: toml_edit::TomlError| {
             ConfigErrors(vec![ConfigError {
                 file: path.to_path_buf(),
