@@ -29,10 +29,11 @@ cpus=${CPUS:-1}
 logs="$out.slurm-logs"
 mkdir -p "$logs"
 
-# Exit code 3 means "finished, some points failed" (recorded in the journal): not a task failure.
+# A task that finished with failed points exits 1 (the points are in its journal); the merge
+# runs after every task whatever its state (afterany) and reports the failed points again.
 array=$(sbatch --parsable --array="0-$((tasks - 1))" --cpus-per-task="$cpus" \
   --job-name=cavern-scan --output="$logs/task-%A_%a.out" "$@" \
-  --wrap="\"$cavern\" scan \"$config\" -o \"$out\"; rc=\$?; [ \$rc -eq 3 ] && rc=0; exit \$rc")
+  --wrap="\"$cavern\" scan \"$config\" -o \"$out\"")
 echo "slurm-scan: array job $array ($tasks tasks)"
 
 wait_opt=()
@@ -41,7 +42,7 @@ merge_cmd="\"$cavern\" merge -o \"$out\" \"$out\".shard-*-of-$tasks.journal"
 (( tasks == 1 )) && merge_cmd="true"   # a single task writes OUT itself
 set +e
 merge=$(sbatch --parsable "${wait_opt[@]}" --dependency="afterany:$array" --job-name=cavern-merge \
-  --output="$logs/merge-%j.out" "$@" --wrap="$merge_cmd; rc=\$?; [ \$rc -eq 3 ] && rc=0; exit \$rc")
+  --output="$logs/merge-%j.out" "$@" --wrap="$merge_cmd")
 rc=$?
 set -e
 echo "slurm-scan: merge job $merge (after the array); log in $logs"

@@ -77,11 +77,11 @@ enum Command {
         out_dir: Option<PathBuf>,
     },
     /// Run a parameter scan (a config with [scan]); rerunning the same command resumes it.
-    /// Exit code 3: finished and written, but some points failed.
+    /// Exit code 1 also when the scan finished and was written but some points failed.
     Scan(crate::scan::cmd::ScanArgs),
     /// Report a scan in progress or finished: points done, failed, remaining, ETA.
     Status(crate::scan::cmd::StatusArgs),
-    /// Combine the journals of scan shards into one HDF5 file (exit code 3 if points failed).
+    /// Combine the journals of scan shards into one HDF5 file (exit code 1 if points failed).
     Merge(crate::scan::cmd::MergeArgs),
 }
 

@@ -10,8 +10,10 @@ use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
-/// Exit code of a scan (or merge) that finished and wrote its output, but with failed points.
-pub const EXIT_POINTS_FAILED: i32 = 3;
+/// Exit code of a scan (or merge) that finished and wrote its output, but with failed points:
+/// the runtime-failure code 1 (the failed points are runtime failures; the message and
+/// `/scan/status` say which, and the file is complete for the others).
+pub const EXIT_POINTS_FAILED: i32 = 1;
 
 /// Arguments of `cavern scan`.
 #[derive(clap::Args, Debug)]
