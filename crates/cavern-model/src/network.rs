@@ -760,6 +760,47 @@ mod tests {
     }
 
     #[test]
+    fn field_relaxation_jumps_carry_glauber_weights() {
+        // two sites, Jᶻ₀₁ = −0.5 (ferromagnetic): ĥ₀ = 0.5 s₁; at T = 0 site 0 may only flip
+        // towards s₁ (Glauber 1963 at zero temperature), with amplitude √γ_G
+        let mut net = Network {
+            sites: vec![SiteParams::default(); 2],
+            zz: vec![vec![0.0, -0.5], vec![-0.5, 0.0]],
+            field_relaxation: Some(FieldRelaxation {
+                rate: 4.0,
+                temperature: 0.0,
+            }),
+            ..Network::empty()
+        };
+        let me = net.build().unwrap();
+        let built: Vec<Channel> = me.jumps.iter().map(|j| j.channel).collect();
+        assert_eq!(net.channels(), built);
+        assert_eq!(built[0].label(), "site0-relax-up");
+        assert_eq!(built[3].label(), "site1-relax-down");
+        // basis index = 2·digit(site 0) + digit(site 1); up-jump of site 0: |g s₁⟩ → |e s₁⟩
+        let up0 = me.jumps[0].op.to_dense();
+        assert_eq!(up0[2 * 4], real(0.0)); // row 2, column 0; s₁ = −1: field points down, no up-flip
+        assert_eq!(up0[3 * 4 + 1], real(2.0)); // s₁ = +1: rate 4 → amplitude 2
+                                               // no zz: h = 0, w = ½ either way at any temperature
+        net.zz.clear();
+        net.field_relaxation = Some(FieldRelaxation {
+            rate: 2.0,
+            temperature: 0.0,
+        });
+        let me = net.build().unwrap();
+        for j in &me.jumps {
+            for (_, _, v) in j.op.triplets() {
+                assert!((v.re - 1.0).abs() < 1e-15);
+            }
+        }
+        net.field_relaxation = Some(FieldRelaxation {
+            rate: 1.0,
+            temperature: -1.0,
+        });
+        assert!(net.build().is_err());
+    }
+
+    #[test]
     fn envelope_terms_are_kept_apart() {
         let mut net = one_site_one_mode();
         net.modes[0].drive_envelope = Envelope::Ramp {
