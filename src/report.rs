@@ -473,7 +473,7 @@ pub fn recall_table(plan: &RunPlan, pp: &ProbePlan, rec: &RecallResult) -> Strin
     let gl = format!("Glauber success (T = {})", sig(pp.glauber_temperature));
     let _ = writeln!(
         s,
-        "{:>3} {:>6} {:>22} {:>20} {:>16} {:>w$}",
+        "{:>3}  {:>6}  {:>22}  {:>20}  {:>16}  {:>w$}",
         "k",
         "probes",
         "quantum success ± err",
@@ -485,7 +485,7 @@ pub fn recall_table(plan: &RunPlan, pp: &ProbePlan, rec: &RecallResult) -> Strin
     for c in &rec.curve {
         let _ = writeln!(
             s,
-            "{:>3} {:>6} {:>22} {:>20} {:>16.3} {:>w$.3}",
+            "{:>3}  {:>6}  {:>22}  {:>20}  {:>16.3}  {:>w$.3}",
             c.flips,
             c.probes,
             format!("{:.3} ± {:.3}", c.success, c.success_stderr),

@@ -73,7 +73,7 @@ fn check_prints_the_couplings_and_their_spectrum() {
         .skip_while(|l| !l.contains("coupling matrix J (rule units"))
         .skip(1)
         .take(5)
-        .map(|l| numbers_in_brackets(l))
+        .map(numbers_in_brackets)
         .collect();
     let spectrum = numbers_in_brackets(
         s.lines()
@@ -119,7 +119,7 @@ print(" ".join(repr(float(x)) for x in np.linalg.eigvalsh(J)))
         .skip_while(|l| !l.contains("spin–spin zz"))
         .skip(1)
         .take(5)
-        .map(|l| numbers_in_brackets(l))
+        .map(numbers_in_brackets)
         .collect();
     assert!((zz[0][2] + 0.5 * 0.4).abs() < 1e-6, "{s}");
     // the stored patterns are observed automatically
