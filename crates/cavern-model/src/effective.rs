@@ -68,7 +68,7 @@ fn unsupported(what: String, value: f64, allowed: &str) -> ModelError {
 /// Eliminate every mode of `net` (see the module documentation).
 ///
 /// Requirements: longitudinal coupling (or no coupling), constant coupling envelope, every mode
-/// undriven with zero thermal occupation and Δ² + κ²/4 > 0. If the direct zz has a time
+/// undriven with zero thermal occupation and Δ² + κ²/4 > 0. If a non-zero direct zz has a time
 /// envelope, the mediated zz must vanish (they could not share one envelope). Field relaxation
 /// ([`crate::FieldRelaxation`]) is kept and then acts on the local field of the effective zz
 /// (direct + mediated), whereas in the full network it sees the direct zz only.
@@ -151,14 +151,19 @@ pub fn eliminate_modes(net: &Network) -> Result<EffectiveModel, ModelError> {
             });
         }
     }
-    if mediated_any && !net.zz_envelope.is_constant() && !net.zz.is_empty() {
-        return Err(ModelError::Envelope(
-            "mode elimination: the direct zz has a time envelope, which the mediated zz would \
-             wrongly share"
-                .into(),
-        ));
-    }
+    let direct_zz = net.zz.iter().flatten().any(|&x| x != 0.0);
     let mut network = net.clone();
+    if mediated_any && !net.zz_envelope.is_constant() {
+        if direct_zz {
+            return Err(ModelError::Envelope(
+                "mode elimination: the direct zz has a time envelope, which the mediated zz \
+                 would wrongly share"
+                    .into(),
+            ));
+        }
+        // the envelope belonged to an absent direct zz; the mediated zz is constant
+        network.zz_envelope = crate::Envelope::Constant;
+    }
     network.modes.clear();
     network.coupling.clear();
     network.zz = if zz.iter().flatten().any(|&x| x != 0.0) {
