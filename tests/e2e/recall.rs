@@ -430,10 +430,13 @@ fn strong_field_relaxation_reproduces_the_classical_recall_outcome() {
     run(&sb, &cfg);
     let probes = classical_reference(&sb, 20.0, 0.0, 1.0);
     assert_eq!(probes.len(), 2 * (6 + 15));
+    // tolerance: the drive admixes the flipped state of a site with weight ≈ (Ω/γ_G)² = 2.5e-7
+    // (the damping γ_G/2 = 10 dominates the zz energy differences, ≤ 2); measured max deviation
+    // 1e-5 (with the integration error at rtol 1e-8); the bound leaves a factor 10
     for r in &probes {
         for (q, c) in r.quantum.iter().zip(&r.expected) {
             assert!(
-                (q - c).abs() < 2e-3,
+                (q - c).abs() < 1e-4,
                 "quantum {:?} vs classical {:?}",
                 r.quantum,
                 r.expected
