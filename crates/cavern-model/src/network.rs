@@ -165,6 +165,9 @@ pub enum Channel {
     /// Collective dephasing left by adiabatically eliminating mode m
     /// ([`crate::effective`]): √κ Σᵢ gᵢσᶻᵢ/|Δ − iκ/2|.
     MediatedDephasing(usize),
+    /// Collective decay left by adiabatically eliminating exchange-coupled mode m
+    /// ([`crate::effective`]): √κ Σᵢ gᵢσ⁻ᵢ/|Δ − iκ/2|.
+    MediatedDecay(usize),
 }
 
 impl Channel {
@@ -179,6 +182,7 @@ impl Channel {
             Channel::SiteRelaxUp(i) => format!("site{i}-relax-up"),
             Channel::SiteRelaxDown(i) => format!("site{i}-relax-down"),
             Channel::MediatedDephasing(m) => format!("mode{m}-mediated-dephasing"),
+            Channel::MediatedDecay(m) => format!("mode{m}-mediated-decay"),
         }
     }
 }
@@ -189,9 +193,9 @@ pub struct JumpOp {
     /// The physical channel.
     pub channel: Channel,
     /// The channel's physical rate (κ(1+n_th), κn_th, γ, γφ, P, γ_G, or κ for a mediated
-    /// dephasing). `op` carries its square root, except for dephasing, where `op` = √(γφ/2) σᶻ,
-    /// and for the field relaxation and mediated dephasing, whose `op` also carries the
-    /// state-dependent factor.
+    /// jump). `op` carries its square root, except for dephasing, where `op` = √(γφ/2) σᶻ,
+    /// and for the field relaxation and mediated jumps, whose `op` also carries the
+    /// state-dependent or collective factor.
     pub rate: f64,
     /// L, including √rate.
     pub op: SparseOp,
