@@ -24,8 +24,9 @@
 //! ```
 //!
 //! (valid while the spin detunings are small compared with |Δ − iκ/2|). A collective decay has
-//! several entries per row, which the density-matrix kernel of `cavern-evolve` does not accept;
-//! quantum trajectories and the sparse steady-state solver do.
+//! several entries per row, which the density-matrix kernel of `cavern-evolve` (and the
+//! steady-state solvers, which check residuals with it) refuse; its quantum trajectories apply
+//! it as a general sparse matrix.
 //!
 //! The spin-only model is accurate when the mode's response is fast
 //! and weak: |gᵢ|·N ≪ |Δ − iκ/2| and the spin dynamics (Rabi frequencies, detunings, zz) slow
