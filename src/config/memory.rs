@@ -6,6 +6,7 @@
 use super::{nearest, MethodRequest, Resolver};
 use crate::recall::{choose, draw_probes, Corruption, MemoryPlan, Probe, ProbePlan, Realisation};
 use crate::units::Units;
+use cavern_model::effective;
 use cavern_model::memory::{self, Couplings, LearningRule};
 use cavern_model::{CouplingForm, FieldRelaxation, ModeInit, ModeParams, Network, ProductState};
 use serde::Deserialize;
@@ -29,6 +30,7 @@ pub(super) struct RawMemory {
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields)]
 struct RawMemoryModes {
+    eliminate: Option<bool>,
     levels: Option<i64>,
     detuning: f64,
     loss: Option<f64>,
@@ -234,6 +236,10 @@ impl Resolver {
                     units,
                     "coupling g/2π",
                 );
+                let eliminated = md.eliminate.unwrap_or(false);
+                if eliminated && !t.network.modes.is_empty() {
+                    self.err("memory.modes.eliminate", "eliminating the memory modes eliminates every mode of the network; remove the config's own [[modes]] or set eliminate = false");
+                }
                 (
                     Realisation::Modes {
                         first_mode: t.network.modes.len(),
@@ -241,6 +247,7 @@ impl Resolver {
                         detuning,
                         loss,
                         coupling: g,
+                        eliminated,
                     },
                     -memory::mediated_zz(g, g, detuning, loss) * n as f64,
                 )
@@ -262,8 +269,14 @@ impl Resolver {
         };
         let (realisation, scale) = realised;
         let relaxation = raw.relaxation.as_ref().and_then(|r| {
-            if matches!(realisation, Realisation::Modes { .. }) {
-                self.err("memory.relaxation", "the local-field relaxation uses the direct zz couplings, which realisation = \"modes\" does not have; use realisation = \"zz\"");
+            if matches!(
+                realisation,
+                Realisation::Modes {
+                    eliminated: false,
+                    ..
+                }
+            ) {
+                self.err("memory.relaxation", "the local-field relaxation uses the direct zz couplings, which realisation = \"modes\" does not have; use realisation = \"zz\", or eliminate the modes ([memory.modes] eliminate = true), which turns them into zz couplings");
                 return None;
             }
             let rate = self.rate("memory.relaxation.rate", Some(r.rate), units, "relaxation rate γ_G/2π");
@@ -284,6 +297,8 @@ impl Resolver {
         }
         // apply to the network
         let net = t.network;
+        net.field_relaxation = relaxation;
+        let mut mediated_jumps = Vec::new();
         match &realisation {
             Realisation::Modes {
                 levels,
@@ -291,6 +306,7 @@ impl Resolver {
                 loss,
                 coupling,
                 first_mode,
+                eliminated,
             } => {
                 let user_modes = *first_mode;
                 for mu in 0..patterns.len() {
@@ -309,10 +325,26 @@ impl Resolver {
                     .map(|row| std::iter::repeat_n(0.0, user_modes).chain(row).collect())
                     .collect();
                 net.coupling_form = CouplingForm::Longitudinal;
+                if *eliminated {
+                    match effective::eliminate_modes(net) {
+                        Ok(eff) => {
+                            *net = eff.network;
+                            mediated_jumps = eff.jumps;
+                            t.mode_names.clear();
+                            t.initial.modes.clear();
+                        }
+                        Err(e) => {
+                            self.err(
+                                "memory.modes.eliminate",
+                                format!("the modes cannot be eliminated: {e}"),
+                            );
+                            return None;
+                        }
+                    }
+                }
             }
             _ => net.zz = memory::zz_from_couplings(&couplings, scale),
         }
-        net.field_relaxation = relaxation;
         Some(MemoryPlan {
             patterns,
             rule: (realisation != Realisation::Matrix).then_some(rule),
@@ -321,6 +353,7 @@ impl Resolver {
             scale,
             relaxation,
             probes,
+            mediated_jumps,
         })
     }
 
