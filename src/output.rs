@@ -308,9 +308,11 @@ fn write_memory_group(root: &mut Group, plan: &RunPlan, mem: &MemoryPlan) {
         detuning,
         loss,
         coupling,
+        eliminated,
     } = &mem.realisation
     {
-        g.attr("first_memory_mode", *first_mode as i64)
+        g.attr("modes_eliminated", i64::from(*eliminated))
+            .attr("first_memory_mode", *first_mode as i64)
             .attr("mode_levels", *levels as i64)
             .attr("mode_detuning", back(*detuning))
             .attr("mode_loss", back(*loss))

@@ -13,6 +13,7 @@
 use crate::config::{Method, RunPlan};
 use crate::AppError;
 use cavern_evolve::{evolve_density, run_trajectories, DopriOptions, Par, TrajectoryOptions};
+use cavern_model::effective::{EffectiveModel, MediatedJump};
 use cavern_model::memory::{overlap, Couplings, LearningRule, Pattern};
 use cavern_model::state::{MixedProductState, SiteInit};
 use cavern_model::{FieldRelaxation, MasterEquation, SpinInit};
@@ -40,6 +41,9 @@ pub enum Realisation {
         loss: f64,
         /// g (angular).
         coupling: f64,
+        /// The modes were eliminated adiabatically: the run uses the spin-only effective model
+        /// (mediated zz in the Hamiltonian, one collective dephasing jump per pattern).
+        eliminated: bool,
     },
 }
 
@@ -72,6 +76,25 @@ pub struct MemoryPlan {
     pub relaxation: Option<FieldRelaxation>,
     /// The probes, when `[probes]` is present.
     pub probes: Option<ProbePlan>,
+    /// The collective jumps left by eliminated memory modes (empty unless the modes were
+    /// eliminated; the Hamiltonian part is already in the network's zz).
+    pub mediated_jumps: Vec<MediatedJump>,
+}
+
+/// The master equation of a plan: the network's, plus the collective jumps of eliminated memory
+/// modes (Reiter & Sørensen, Phys. Rev. A 85, 032111 (2012)).
+///
+/// # Errors
+/// As [`cavern_model::Network::build`].
+pub fn master_equation(plan: &RunPlan) -> Result<MasterEquation, cavern_model::ModelError> {
+    match &plan.memory {
+        Some(m) if !m.mediated_jumps.is_empty() => EffectiveModel {
+            network: plan.network.clone(),
+            jumps: m.mediated_jumps.clone(),
+        }
+        .build(),
+        _ => plan.network.build(),
+    }
 }
 
 /// How the probed sites are corrupted.

@@ -384,6 +384,7 @@ fn memory_text(plan: &RunPlan, mem: &MemoryPlan) -> String {
         detuning,
         loss,
         coupling,
+        eliminated,
     } = &mem.realisation
     {
         let _ = writeln!(
@@ -403,14 +404,28 @@ fn memory_text(plan: &RunPlan, mem: &MemoryPlan) -> String {
              Jᶻᵢⱼ = −2g²Δ/(Δ² + κ²/4) Σ_μ ξᵢ^μξⱼ^μ, i.e. the Hebbian J with c = 2N g²Δ/(Δ² + κ²/4); g²Δ/(Δ² + κ²/4)/2π = {} {fu}; valid for |Δ| ≫ g√N and small g/Δ",
             sig(back(coupling * coupling * d / (d * d + 0.25 * k * k)))
         );
-        let jz = cavern_model::memory::zz_from_couplings(&mem.couplings, mem.scale);
-        let _ = writeln!(
-            s,
-            "  effective Jᶻ/2π in {fu} (not in the Hamiltonian; the modes are):"
-        );
-        for (i, row) in jz.iter().enumerate() {
-            let r: Vec<String> = row.iter().map(|&x| sig(back(x))).collect();
-            let _ = writeln!(s, "    site {i}: [{}]", r.join(", "));
+        if *eliminated {
+            let labels: Vec<String> = mem
+                .mediated_jumps
+                .iter()
+                .map(|j| cavern_model::Channel::MediatedDephasing(j.mode).label())
+                .collect();
+            let _ = writeln!(
+                s,
+                "  the modes are ELIMINATED: the run uses the spin-only effective model, with the effective Jᶻ as the zz couplings above and one collective dephasing jump √κ Σᵢ gξᵢ^μσᶻᵢ/|Δ − iκ/2| per pattern ({}); corrections of relative order N(g/|Δ − iκ/2|)² = {}",
+                labels.join(", "),
+                sig(n as f64 * coupling * coupling / (d * d + 0.25 * k * k))
+            );
+        } else {
+            let jz = cavern_model::memory::zz_from_couplings(&mem.couplings, mem.scale);
+            let _ = writeln!(
+                s,
+                "  effective Jᶻ/2π in {fu} (not in the Hamiltonian; the modes are):"
+            );
+            for (i, row) in jz.iter().enumerate() {
+                let r: Vec<String> = row.iter().map(|&x| sig(back(x))).collect();
+                let _ = writeln!(s, "    site {i}: [{}]", r.join(", "));
+            }
         }
     }
     if let Some(r) = &mem.relaxation {
@@ -473,7 +488,7 @@ pub fn recall_table(plan: &RunPlan, pp: &ProbePlan, rec: &RecallResult) -> Strin
     let gl = format!("Glauber success (T = {})", sig(pp.glauber_temperature));
     let _ = writeln!(
         s,
-        "{:>3} {:>6} {:>22} {:>20} {:>16} {:>w$}",
+        "{:>3}  {:>6}  {:>22}  {:>20}  {:>16}  {:>w$}",
         "k",
         "probes",
         "quantum success ± err",
@@ -485,7 +500,7 @@ pub fn recall_table(plan: &RunPlan, pp: &ProbePlan, rec: &RecallResult) -> Strin
     for c in &rec.curve {
         let _ = writeln!(
             s,
-            "{:>3} {:>6} {:>22} {:>20} {:>16.3} {:>w$.3}",
+            "{:>3}  {:>6}  {:>22}  {:>20}  {:>16.3}  {:>w$.3}",
             c.flips,
             c.probes,
             format!("{:.3} ± {:.3}", c.success, c.success_stderr),

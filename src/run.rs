@@ -153,6 +153,10 @@ pub fn max_jump_rate(plan: &RunPlan) -> f64 {
     for m in &plan.network.modes {
         r += m.loss * (1.0 + 2.0 * m.thermal) * (m.levels - 1) as f64;
     }
+    // eliminated memory modes: ‖Σᵢ wᵢσᶻᵢ ψ‖² ≤ (Σᵢ|wᵢ|)²
+    for j in plan.memory.iter().flat_map(|m| &m.mediated_jumps) {
+        r += j.weights.iter().map(|w| w.abs()).sum::<f64>().powi(2);
+    }
     r
 }
 
@@ -643,9 +647,7 @@ pub fn run(
         .map_err(|e| AppError::Input(format!("{}: {e}", plan.path.display())))?;
     let choice = choose(plan, space.dim());
     memory_guard(plan, &choice)?;
-    let me = plan
-        .network
-        .build()
+    let me = crate::recall::master_equation(plan)
         .map_err(|e| AppError::Input(format!("{}: {e}", plan.path.display())))?;
     let dim = me.space.dim();
     let n_t = plan.times.len();

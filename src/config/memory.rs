@@ -6,6 +6,7 @@
 use super::{nearest, MethodRequest, Resolver};
 use crate::recall::{choose, draw_probes, Corruption, MemoryPlan, Probe, ProbePlan, Realisation};
 use crate::units::Units;
+use cavern_model::effective;
 use cavern_model::memory::{self, Couplings, LearningRule};
 use cavern_model::{CouplingForm, FieldRelaxation, ModeInit, ModeParams, Network, ProductState};
 use serde::Deserialize;
@@ -29,6 +30,7 @@ pub(super) struct RawMemory {
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields)]
 struct RawMemoryModes {
+    eliminate: Option<bool>,
     levels: Option<i64>,
     detuning: f64,
     loss: Option<f64>,
@@ -234,6 +236,10 @@ impl Resolver {
                     units,
                     "coupling g/2π",
                 );
+                let eliminated = md.eliminate.unwrap_or(false);
+                if eliminated && !t.network.modes.is_empty() {
+                    self.err("memory.modes.eliminate", "eliminating the memory modes eliminates every mode of the network; remove the config's own [[modes]] or set eliminate = false");
+                }
                 (
                     Realisation::Modes {
                         first_mode: t.network.modes.len(),
@@ -241,6 +247,7 @@ impl Resolver {
                         detuning,
                         loss,
                         coupling: g,
+                        eliminated,
                     },
                     -memory::mediated_zz(g, g, detuning, loss) * n as f64,
                 )
@@ -262,8 +269,14 @@ impl Resolver {
         };
         let (realisation, scale) = realised;
         let relaxation = raw.relaxation.as_ref().and_then(|r| {
-            if matches!(realisation, Realisation::Modes { .. }) {
-                self.err("memory.relaxation", "the local-field relaxation uses the direct zz couplings, which realisation = \"modes\" does not have; use realisation = \"zz\"");
+            if matches!(
+                realisation,
+                Realisation::Modes {
+                    eliminated: false,
+                    ..
+                }
+            ) {
+                self.err("memory.relaxation", "the local-field relaxation uses the direct zz couplings, which realisation = \"modes\" does not have; use realisation = \"zz\", or eliminate the modes ([memory.modes] eliminate = true), which turns them into zz couplings");
                 return None;
             }
             let rate = self.rate("memory.relaxation.rate", Some(r.rate), units, "relaxation rate γ_G/2π");
@@ -284,6 +297,8 @@ impl Resolver {
         }
         // apply to the network
         let net = t.network;
+        net.field_relaxation = relaxation;
+        let mut mediated_jumps = Vec::new();
         match &realisation {
             Realisation::Modes {
                 levels,
@@ -291,6 +306,7 @@ impl Resolver {
                 loss,
                 coupling,
                 first_mode,
+                eliminated,
             } => {
                 let user_modes = *first_mode;
                 for mu in 0..patterns.len() {
@@ -309,10 +325,26 @@ impl Resolver {
                     .map(|row| std::iter::repeat_n(0.0, user_modes).chain(row).collect())
                     .collect();
                 net.coupling_form = CouplingForm::Longitudinal;
+                if *eliminated {
+                    match effective::eliminate_modes(net) {
+                        Ok(eff) => {
+                            *net = eff.network;
+                            mediated_jumps = eff.jumps;
+                            t.mode_names.clear();
+                            t.initial.modes.clear();
+                        }
+                        Err(e) => {
+                            self.err(
+                                "memory.modes.eliminate",
+                                format!("the modes cannot be eliminated: {e}"),
+                            );
+                            return None;
+                        }
+                    }
+                }
             }
             _ => net.zz = memory::zz_from_couplings(&couplings, scale),
         }
-        net.field_relaxation = relaxation;
         Some(MemoryPlan {
             patterns,
             rule: (realisation != Realisation::Matrix).then_some(rule),
@@ -321,6 +353,7 @@ impl Resolver {
             scale,
             relaxation,
             probes,
+            mediated_jumps,
         })
     }
 
@@ -465,5 +498,78 @@ impl Resolver {
             glauber_sweeps,
             glauber_runs,
         })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::parse;
+    use cavern_model::{CouplingForm, ModeInit};
+    use std::f64::consts::TAU;
+    use std::path::Path;
+
+    const BASE: &str = "[units]\nsystem = \"physical\"\nfrequency = \"MHz\"\n[time]\nstop = 1.0\n\
+                        [sites]\ncount = 4\n[[modes]]\nname = \"readout\"\nlevels = 2\n";
+
+    #[test]
+    fn zz_realisation_sets_minus_scale_times_j_and_observes_the_patterns() {
+        let cfg = format!(
+            "{BASE}[memory]\npatterns = [\"++--\", \"+-+-\"]\nscale = 0.5\n\
+             [observe]\npatterns = [\"++++\", \"+-+-\"]\n"
+        );
+        let p = parse(Path::new("t.toml"), &cfg).unwrap();
+        let m = p.memory.as_ref().unwrap();
+        // Hebbian J₀₃ = (1/4)(−1 − 1) = −½, so Jᶻ₀₃ = −c·J₀₃ = 2π·0.5·½
+        assert!((m.couplings.get(0, 3) + 0.5).abs() < 1e-15);
+        assert!((p.network.zz[0][3] - TAU * 0.25).abs() < 1e-12);
+        assert_eq!(p.network.zz[0][1], 0.0);
+        // stored patterns first, then the extra observed one (the duplicate is dropped)
+        assert_eq!(
+            p.observe.patterns,
+            vec![vec![1, 1, -1, -1], vec![1, -1, 1, -1], vec![1, 1, 1, 1]]
+        );
+        assert!(m.probes.is_none() && p.network.field_relaxation.is_none());
+    }
+
+    #[test]
+    fn mode_realisation_appends_one_longitudinal_mode_per_pattern() {
+        let cfg = format!(
+            "{BASE}[memory]\npatterns = [\"++--\", \"+-+-\"]\nrealisation = \"modes\"\n\
+             [memory.modes]\ndetuning = 2.0\nloss = 1.0\ncoupling = 0.1\n"
+        );
+        let p = parse(Path::new("t.toml"), &cfg).unwrap();
+        let net = &p.network;
+        assert_eq!(net.modes.len(), 3);
+        assert_eq!(p.mode_names, ["readout", "memory0", "memory1"]);
+        assert_eq!(net.coupling_form, CouplingForm::Longitudinal);
+        assert_eq!(p.initial.modes, vec![ModeInit::Vacuum; 3]);
+        // [site][mode]: the readout mode uncoupled, then g ξᵢ^μ (angular)
+        assert_eq!(net.coupling[1], vec![0.0, TAU * 0.1, -TAU * 0.1]);
+        assert_eq!(net.modes[2].levels, 3);
+        assert!(net.zz.is_empty());
+        // c = 2N g²Δ/(Δ² + κ²/4), angular: one power of 2π
+        let c = 2.0 * 4.0 * 0.01 * 2.0 / (4.0 + 0.25) * TAU;
+        assert!((p.memory.unwrap().scale - c).abs() < 1e-12 * c);
+    }
+
+    #[test]
+    fn probes_are_every_subset_unless_drawn() {
+        let mem = format!("{BASE}[memory]\npatterns = [\"++--\", \"+-+-\"]\nscale = 1.0\n");
+        let p = parse(
+            Path::new("t.toml"),
+            &format!("{mem}[probes]\nmax_flips = 2\npatterns = [1]\n"),
+        )
+        .unwrap();
+        let pp = p.memory.unwrap().probes.unwrap();
+        assert_eq!(pp.probes.len(), 4 + 6);
+        assert!(pp.probes.iter().all(|x| x.pattern == 1));
+        assert_eq!((pp.threshold, pp.glauber_temperature), (0.8, 0.1));
+        let p = parse(
+            Path::new("t.toml"),
+            &format!("{mem}[probes]\nmax_flips = 2\ndraws = 3\nseed = 9\n"),
+        )
+        .unwrap();
+        // k = 1: 3 of 4 sets, k = 2: 3 of 6 sets, for each of the two patterns
+        assert_eq!(p.memory.unwrap().probes.unwrap().probes.len(), 2 * (3 + 3));
     }
 }

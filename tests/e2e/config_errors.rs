@@ -70,6 +70,7 @@ const REQUIRED: &[&str] = &[
     "memory-scale-missing",
     "memory-modes-detuning-negative",
     "memory-relaxation-negative",
+    "memory-eliminate-with-modes",
     "probes-without-memory",
     "probes-max-flips-too-large",
     "probes-site-out-of-range",

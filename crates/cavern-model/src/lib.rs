@@ -19,10 +19,15 @@
 //! Conventions (see each item): σᶻ = diag(−1, +1) in the (g, e) basis, σ⁻ = |g⟩⟨e|, and
 //!
 //! ```text
-//! H = Σₘ Δcₘ a†ₘaₘ + Σᵢ (Δaᵢ/2)σᶻᵢ + Σᵢₘ gᵢₘ(aₘσ⁺ᵢ + a†ₘσ⁻ᵢ)   [or gᵢₘ(aₘ + a†ₘ)σˣᵢ]
+//! H = Σₘ Δcₘ a†ₘaₘ + Σᵢ (Δaᵢ/2)σᶻᵢ + Σᵢₘ gᵢₘ(aₘσ⁺ᵢ + a†ₘσ⁻ᵢ)   [or gᵢₘ(aₘ + a†ₘ)σˣᵢ,
+//!     or gᵢₘ(aₘ + a†ₘ)σᶻᵢ]
 //!   + Σₘ εₘ(aₘ + a†ₘ) + Σᵢ (Ωᵢ/2)σˣᵢ + Σᵢ<ⱼ [Jᶻᵢⱼ σᶻᵢσᶻⱼ + Jˣᵢⱼ(σ⁺ᵢσ⁻ⱼ + σ⁻ᵢσ⁺ⱼ)]
-//! jump operators √(κ(1+n_th)) a, √(κ n_th) a†, √γ σ⁻, √(γφ/2) σᶻ, √P σ⁺
+//! jump operators √(κ(1+n_th)) a, √(κ n_th) a†, √γ σ⁻, √(γφ/2) σᶻ, √P σ⁺,
+//!     and optionally √γ_G σ⁺ w↑(ĥ)^½, √γ_G σ⁻ w↓(ĥ)^½ (local-field relaxation, FieldRelaxation)
 //! ```
+//!
+//! [`memory`] turns stored patterns into couplings (Hopfield-type associative memory) and
+//! [`effective`] eliminates lossy longitudinally coupled modes into a spin-only model.
 
 pub mod effective;
 pub mod envelope;

@@ -131,9 +131,9 @@ pub enum MemoryError {
         i: usize,
         /// Column.
         j: usize,
-        /// Entry [i][j].
+        /// Entry (i, j).
         a: f64,
-        /// Entry [j][i].
+        /// Entry (j, i).
         b: f64,
     },
     /// A coupling matrix has a non-zero diagonal entry.

@@ -165,6 +165,9 @@ pub enum Channel {
     /// Collective dephasing left by adiabatically eliminating mode m
     /// ([`crate::effective`]): √κ Σᵢ gᵢσᶻᵢ/|Δ − iκ/2|.
     MediatedDephasing(usize),
+    /// Collective decay left by adiabatically eliminating exchange-coupled mode m
+    /// ([`crate::effective`]): √κ Σᵢ gᵢσ⁻ᵢ/|Δ − iκ/2|.
+    MediatedDecay(usize),
 }
 
 impl Channel {
@@ -179,6 +182,7 @@ impl Channel {
             Channel::SiteRelaxUp(i) => format!("site{i}-relax-up"),
             Channel::SiteRelaxDown(i) => format!("site{i}-relax-down"),
             Channel::MediatedDephasing(m) => format!("mode{m}-mediated-dephasing"),
+            Channel::MediatedDecay(m) => format!("mode{m}-mediated-decay"),
         }
     }
 }
@@ -189,9 +193,9 @@ pub struct JumpOp {
     /// The physical channel.
     pub channel: Channel,
     /// The channel's physical rate (κ(1+n_th), κn_th, γ, γφ, P, γ_G, or κ for a mediated
-    /// dephasing). `op` carries its square root, except for dephasing, where `op` = √(γφ/2) σᶻ,
-    /// and for the field relaxation and mediated dephasing, whose `op` also carries the
-    /// state-dependent factor.
+    /// jump). `op` carries its square root, except for dephasing, where `op` = √(γφ/2) σᶻ,
+    /// and for the field relaxation and mediated jumps, whose `op` also carries the
+    /// state-dependent or collective factor.
     pub rate: f64,
     /// L, including √rate.
     pub op: SparseOp,
@@ -757,6 +761,47 @@ mod tests {
         let me = one_site_one_mode().build().unwrap();
         let built: Vec<Channel> = me.jumps.iter().map(|j| j.channel).collect();
         assert_eq!(one_site_one_mode().channels(), built);
+    }
+
+    #[test]
+    fn field_relaxation_jumps_carry_glauber_weights() {
+        // two sites, Jᶻ₀₁ = −0.5 (ferromagnetic): ĥ₀ = 0.5 s₁; at T = 0 site 0 may only flip
+        // towards s₁ (Glauber 1963 at zero temperature), with amplitude √γ_G
+        let mut net = Network {
+            sites: vec![SiteParams::default(); 2],
+            zz: vec![vec![0.0, -0.5], vec![-0.5, 0.0]],
+            field_relaxation: Some(FieldRelaxation {
+                rate: 4.0,
+                temperature: 0.0,
+            }),
+            ..Network::empty()
+        };
+        let me = net.build().unwrap();
+        let built: Vec<Channel> = me.jumps.iter().map(|j| j.channel).collect();
+        assert_eq!(net.channels(), built);
+        assert_eq!(built[0].label(), "site0-relax-up");
+        assert_eq!(built[3].label(), "site1-relax-down");
+        // basis index = 2·digit(site 0) + digit(site 1); up-jump of site 0: |g s₁⟩ → |e s₁⟩
+        let up0 = me.jumps[0].op.to_dense();
+        assert_eq!(up0[2 * 4], real(0.0)); // row 2, column 0; s₁ = −1: field points down, no up-flip
+        assert_eq!(up0[3 * 4 + 1], real(2.0)); // s₁ = +1: rate 4 → amplitude 2
+                                               // no zz: h = 0, w = ½ either way at any temperature
+        net.zz.clear();
+        net.field_relaxation = Some(FieldRelaxation {
+            rate: 2.0,
+            temperature: 0.0,
+        });
+        let me = net.build().unwrap();
+        for j in &me.jumps {
+            for (_, _, v) in j.op.triplets() {
+                assert!((v.re - 1.0).abs() < 1e-15);
+            }
+        }
+        net.field_relaxation = Some(FieldRelaxation {
+            rate: 1.0,
+            temperature: -1.0,
+        });
+        assert!(net.build().is_err());
     }
 
     #[test]

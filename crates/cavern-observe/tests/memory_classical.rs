@@ -121,6 +121,29 @@ fn hebbian_capacity_breaks_down_near_0_138() {
     eprintln!("N = {n}: mean recall overlap α = 0.05: {below:.4}, α = 0.25: {above:.4}");
     assert!(below > 0.95, "α = 0.05 overlap {below}");
     assert!(above < 0.6, "α = 0.25 overlap {above}");
+    // content-addressable recall from a noisy probe (Hopfield 1982): at α = 0.05 probes with
+    // about 12% of the sites flipped (m₀ ≈ 0.75) descend back to the stored pattern
+    let patterns = random_patterns(n, 20, 2);
+    let j = learn(LearningRule::Hebbian, &patterns).unwrap();
+    let noise = random_patterns(n, 40, 5);
+    for (k, p) in patterns.iter().take(10).enumerate() {
+        // flip site i when three independent draws are all −1 (probability 1/8 = 12.5%)
+        let probe: Vec<i8> = (0..n)
+            .map(|i| {
+                let flip = (0..3).all(|r| noise[k + 10 * r][i] == -1);
+                if flip {
+                    -p[i]
+                } else {
+                    p[i]
+                }
+            })
+            .collect();
+        let out = descend(&j, &probe, 50 + k as u64, 200);
+        let s: Vec<f64> = out.state.iter().map(|&x| f64::from(x)).collect();
+        let m0 = overlap(p, &probe.iter().map(|&x| f64::from(x)).collect::<Vec<_>>());
+        let m = overlap(p, &s);
+        assert!(m0 < 0.85 && m > 0.95, "probe {k}: m₀ = {m0}, final m = {m}");
+    }
 }
 
 /// `count` copies of one random prototype, each entry flipped with probability 1/8 (when three
