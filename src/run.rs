@@ -116,12 +116,20 @@ pub fn bytes_label(b: u128) -> String {
     }
 }
 
-/// Bytes of the recorded series (mean and, for trajectories, standard error).
+/// Bytes of the recorded series (mean and, for trajectories, standard error), plus the
+/// per-probe overlap traces and metrics of `[probes]`.
 fn series_bytes(plan: &RunPlan) -> u128 {
+    let t = plan.times.len() as u128;
+    let probes = plan.memory.as_ref().map_or(0, |m| {
+        let p = m.probes.as_ref().map_or(0, |pp| pp.probes.len()) as u128;
+        let n_p = m.patterns.len() as u128;
+        p * (n_p * t + n_p + plan.network.sites.len() as u128 + 8) * 8
+    });
     (plan.network.sites.len() * 3 + plan.network.modes.len() * 6 + plan.observe.patterns.len() + 2)
         as u128
-        * plan.times.len() as u128
+        * t
         * 8
+        + probes
 }
 
 /// Estimate the density-matrix workspace of `plan` (solver matrices plus recorded series).
@@ -149,6 +157,10 @@ pub fn max_jump_rate(plan: &RunPlan) -> f64 {
     let mut r = 0.0;
     for s in &plan.network.sites {
         r += s.decay + s.dephasing / 2.0 + s.pump;
+    }
+    // local-field relaxation: ‖L↑ψ‖² + ‖L↓ψ‖² ≤ γ_G per site (w↑ + w↓ = 1)
+    if let Some(fr) = &plan.network.field_relaxation {
+        r += fr.rate * plan.network.sites.len() as f64;
     }
     for m in &plan.network.modes {
         r += m.loss * (1.0 + 2.0 * m.thermal) * (m.levels - 1) as f64;

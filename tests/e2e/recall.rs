@@ -596,3 +596,46 @@ print(" ".join(repr(float(x)) for x in f["observables/spin_z"][()].ravel()))
         out.describe()
     );
 }
+
+#[test]
+fn probe_results_do_not_depend_on_the_thread_count() {
+    // density-matrix probes run one per thread for small d; each is a fixed sequential
+    // computation and the classical runs are seeded per probe, so /recall is bit-identical
+    let sb = Sandbox::new();
+    let cfg = sb.write(
+        "threads.toml",
+        "[units]\nsystem = \"dimensionless\"\n[time]\nstop = 1.0\nsamples = 11\n\
+         [sites]\ncount = 4\nrabi = 0.1\ndecay = 0.05\n\
+         [memory]\npatterns = [\"++--\", \"+-+-\"]\nscale = 1.0\n\
+         [memory.relaxation]\nrate = 2.0\ntemperature = 0.2\n\
+         [probes]\nmax_flips = 2\ndraws = 3\nseed = 11\n",
+    );
+    let dump = |threads: &str| {
+        let out = sb.cavern([
+            "run".as_ref(),
+            cfg.as_os_str(),
+            "--threads".as_ref(),
+            threads.as_ref(),
+            "-o".as_ref(),
+            sb.join("out.h5").as_os_str(),
+        ]);
+        out.assert_success();
+        python(
+            r#"
+import sys, h5py
+f = h5py.File(sys.argv[1], "r")
+def walk(g, path=""):
+    for k in sorted(g):
+        if isinstance(g[k], h5py.Group):
+            walk(g[k], path + k + "/")
+        else:
+            print(path + k, g[k][()].tobytes().hex())
+walk(f["recall"])
+"#,
+            &[sb.join("out.h5").as_os_str()],
+        )
+    };
+    let one = dump("1");
+    assert!(one.contains("probes/overlaps"), "{one}");
+    assert_eq!(one, dump("2"));
+}
