@@ -1,7 +1,7 @@
 //! Benchmark of the Lindblad right-hand side `LindbladRhs::apply` against the machine's memory
 //! bandwidth.
 //!
-//! Model (invented, loosely after `demo-data/ring4.toml`): N two-level sites, all coupled to one
+//! Model (invented, loosely after `configs/ring4-resonator.toml`): N two-level sites, all coupled to one
 //! driven 6-level mode by the exchange form g(aσ⁺ + a†σ⁻); spin decay and dephasing, mode loss,
 //! and a few zz couplings between mirror pairs of sites. N = 4, 6, 8, 10 gives d = 96, 384, 1536,
 //! 6144. Every size runs on rayon pools of 1 and 2 threads.

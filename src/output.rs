@@ -580,13 +580,18 @@ fn write_recall_group(
             .attr("units", "1")
             .attr(
                 "description",
-                "fraction of trajectories whose own final overlap with the probed pattern is \
-                 above threshold",
+                "recall probability Tr(Πρ) at the last sample: the probability that measuring \
+                 every site's σᶻ finds a configuration whose overlap with the probed pattern is \
+                 above threshold (exact for the density matrix; for trajectories the mean of \
+                 ⟨ψ|Π|ψ⟩)",
             );
         probes
             .dataset("success_probability_stderr", &[p], sp(|x| x.1))
             .attr("units", "1")
-            .attr("description", "its standard error over the trajectories");
+            .attr(
+                "description",
+                "its standard error over the trajectories (0 for the density matrix: exact)",
+            );
     }
 }
 

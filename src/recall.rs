@@ -329,8 +329,11 @@ pub struct ProbeOutcome {
     pub success: bool,
     /// [`time_to_recall`] of the overlap with the probed pattern.
     pub time_to_recall: f64,
-    /// Trajectories: the fraction of trajectories whose own final overlap is above the
-    /// threshold, and its standard error; `None` for the density matrix.
+    /// Recall probability P = Tr(Π ρ(T)) with its standard error: the probability that measuring
+    /// every site's σᶻ at the last sample finds a configuration whose overlap with the probed
+    /// pattern is above the threshold (Π projects on those configurations, [`recalled_mask`]).
+    /// Exact for the density matrix (error 0); for trajectories the mean of ⟨ψ|Π|ψ⟩ over the
+    /// trajectories and its standard error.
     pub success_probability: Option<(f64, f64)>,
     /// Classical zero-temperature descent from the same start succeeded (0/1).
     pub descent_success: f64,
@@ -372,11 +375,23 @@ pub struct RecallResult {
     pub wall_seconds: f64,
 }
 
-/// The recall curve: probes grouped by k. Density matrix: success = fraction of successful
-/// probes, standard error √(f(1−f)/n) over the n probes (the spread over corruptions).
-/// Trajectories: success = mean success probability, standard error √(Σ se_p²)/n (the
-/// trajectories' statistical error).
-pub fn curve(probes: &[Probe], outcomes: &[ProbeOutcome]) -> Vec<CurvePoint> {
+/// Basis states (of the whole space, modes included) whose spin configuration has an overlap
+/// (1/N) Σᵢ ξᵢ sᵢ with `xi` above `threshold`: the projector Π of the recall probability.
+pub fn recalled_mask(space: &cavern_model::Space, xi: &[i8], threshold: f64) -> Vec<bool> {
+    (0..space.dim())
+        .map(|r| {
+            let s: Vec<f64> = (0..space.n_sites()).map(|i| space.spin(r, i)).collect();
+            overlap(xi, &s) > threshold
+        })
+        .collect()
+}
+
+/// The recall curve: probes grouped by k; success = mean recall probability
+/// ([`ProbeOutcome::success_probability`]) over the n probes. Its error: with `exact`
+/// probabilities (density matrix) the standard error of that mean over the probes,
+/// sd/√n (the spread over corruptions); for trajectories √(Σ se_p²)/n (the trajectories'
+/// statistical error). Without probabilities, the fraction f of successful probes, √(f(1−f)/n).
+pub fn curve(probes: &[Probe], outcomes: &[ProbeOutcome], exact: bool) -> Vec<CurvePoint> {
     let mut ks: Vec<usize> = probes.iter().map(|p| p.sites.len()).collect();
     ks.sort_unstable();
     ks.dedup();
@@ -392,11 +407,24 @@ pub fn curve(probes: &[Probe], outcomes: &[ProbeOutcome]) -> Vec<CurvePoint> {
             let mean = |f: &dyn Fn(&ProbeOutcome) -> f64| sel.iter().map(|o| f(o)).sum::<f64>() / n;
             let (success, success_stderr) = if sel.iter().all(|o| o.success_probability.is_some()) {
                 let p = mean(&|o| o.success_probability.map_or(0.0, |x| x.0));
-                let var: f64 = sel
-                    .iter()
-                    .map(|o| o.success_probability.map_or(0.0, |x| x.1 * x.1))
-                    .sum();
-                (p, var.sqrt() / n)
+                let err = if exact {
+                    let ss: f64 = sel
+                        .iter()
+                        .map(|o| (o.success_probability.map_or(0.0, |x| x.0) - p).powi(2))
+                        .sum();
+                    if sel.len() > 1 {
+                        (ss / (n - 1.0)).sqrt() / n.sqrt()
+                    } else {
+                        0.0
+                    }
+                } else {
+                    sel.iter()
+                        .map(|o| o.success_probability.map_or(0.0, |x| x.1 * x.1))
+                        .sum::<f64>()
+                        .sqrt()
+                        / n
+                };
+                (p, err)
             } else {
                 let f = mean(&|o| f64::from(u8::from(o.success)));
                 (f, (f * (1.0 - f) / n).sqrt())
@@ -525,6 +553,9 @@ pub fn run_probes(
                     .density(&me.space)
                     .map_err(|e| state_err(k, e))?;
                 let mut ov = vec![f64::NAN; n_p * n_t];
+                let mask = recalled_mask(&me.space, &mem.patterns[probe.pattern], pp.threshold);
+                let d = me.space.dim();
+                let mut p_recall = f64::NAN;
                 let o = DopriOptions {
                     par: if parallel { Par::Seq } else { opts.par },
                     ..opts
@@ -534,6 +565,9 @@ pub fn run_probes(
                     for (mu, xi) in mem.patterns.iter().enumerate() {
                         ov[mu * n_t + s] = overlap(xi, &sz);
                     }
+                    if s + 1 == n_t {
+                        p_recall = (0..d).filter(|&r| mask[r]).map(|r| rho[r * d + r].re).sum();
+                    }
                 })
                 .map_err(|e| failed(k, e))?;
                 let out = outcome(
@@ -542,7 +576,7 @@ pub fn run_probes(
                     n_p,
                     probe.pattern,
                     pp.threshold,
-                    None,
+                    Some((p_recall, 0.0)),
                     baseline(mem, pp, k),
                 );
                 progress(1);
@@ -573,8 +607,9 @@ pub fn run_probes(
                 };
                 let psi0 = pure.vector(&me.space).map_err(|e| state_err(k, e))?;
                 let xi = &mem.patterns[probe.pattern];
-                // observables: the overlaps with every pattern, then the indicator that this
-                // trajectory's own overlap with the probed pattern is above the threshold
+                // observables: the overlaps with every pattern, then ⟨ψ|Π|ψ⟩, the probability
+                // that a σᶻ measurement of every site finds the probed pattern recalled
+                let mask = recalled_mask(&me.space, xi, pp.threshold);
                 let observe = |psi: &[cavern_model::C64], out: &mut [f64]| {
                     let sz: Vec<f64> = (0..me.space.n_sites())
                         .map(|i| cavern_observe::state::spin_z(&me.space, psi, i))
@@ -582,7 +617,12 @@ pub fn run_probes(
                     for (mu, p) in mem.patterns.iter().enumerate() {
                         out[mu] = overlap(p, &sz);
                     }
-                    out[n_p] = f64::from(u8::from(overlap(xi, &sz) > pp.threshold));
+                    out[n_p] = psi
+                        .iter()
+                        .zip(&mask)
+                        .filter(|(_, &m)| m)
+                        .map(|(z, _)| z.norm_sqr())
+                        .sum();
                 };
                 let topts = TrajectoryOptions {
                     dopri: opts,
@@ -610,7 +650,7 @@ pub fn run_probes(
         }
     };
     Ok(Some(RecallResult {
-        curve: curve(&pp.probes, &outcomes),
+        curve: curve(&pp.probes, &outcomes, method == Method::DensityMatrix),
         outcomes,
         method,
         trajectories,
@@ -687,6 +727,7 @@ mod tests {
                 o(false, f64::NAN),
                 o(true, 3.0),
             ],
+            false,
         );
         assert_eq!(c.len(), 2);
         assert_eq!((c[0].flips, c[0].probes), (1, 3));
@@ -694,5 +735,14 @@ mod tests {
         assert!((c[0].success_stderr - (2.0f64 / 27.0).sqrt()).abs() < 1e-15);
         assert_eq!(c[0].time_to_recall, 2.0);
         assert!(c[1].time_to_recall.is_nan() && c[1].success == 0.0);
+        // exact probabilities (density matrix): their mean, and the standard error of that
+        // mean over the probes, sd/√n (common practice)
+        let q = |x: f64| ProbeOutcome {
+            success_probability: Some((x, 0.0)),
+            ..o(x > 0.5, 1.0)
+        };
+        let c = curve(&[p(1), p(1), p(1)], &[q(0.2), q(0.5), q(0.8)], true);
+        assert!((c[0].success - 0.5).abs() < 1e-15);
+        assert!((c[0].success_stderr - (0.09f64 / 3.0).sqrt()).abs() < 1e-15);
     }
 }

@@ -469,7 +469,7 @@ pub fn recall_table(plan: &RunPlan, pp: &ProbePlan, rec: &RecallResult) -> Strin
     let mut s = String::new();
     let how = match rec.method {
         Method::DensityMatrix => {
-            "density matrix; ± is the spread over probes √(f(1−f)/n)".to_string()
+            "density matrix; ± is the standard error of the mean over the probes".to_string()
         }
         Method::Trajectories => format!(
             "{} trajectories per probe; ± is the standard error over trajectories",
@@ -478,7 +478,7 @@ pub fn recall_table(plan: &RunPlan, pp: &ProbePlan, rec: &RecallResult) -> Strin
     };
     let _ = writeln!(
         s,
-        "\nrecall of {} probe(s) ({}; {how}): success = final overlap with the probed pattern > {} at t = {} {tu}",
+        "\nrecall of {} probe(s) ({}; {how}): quantum success = mean probability that measuring σᶻ of every site finds an overlap with the probed pattern > {} at t = {} {tu}",
         rec.outcomes.len(),
         pp.corruption.name(),
         pp.threshold,
