@@ -97,7 +97,7 @@ pub fn metrics(root: &Group, point: Option<usize>) -> Vec<Metric> {
                     quantity: "recall_success".into(),
                     when: String::new(),
                     row: row.clone(),
-                    unit: "fraction of probes".into(),
+                    unit: "probability".into(),
                     value: values(s).get(k).copied().unwrap_or(f64::NAN),
                     stderr: stderr.as_ref().and_then(|e| e.get(k)).copied(),
                 });

@@ -415,14 +415,15 @@ fn write_recall_group(
         .attr("units", "1")
         .attr(
             "description",
-            "density matrix: fraction of probes recalled; trajectories: mean over the probes of \
-             the fraction of trajectories whose own final overlap is above threshold",
+            "mean over the probes of the recall probability Tr(Πρ) at the last sample (see \
+             probes/success_probability)",
         );
     g.dataset("success_stderr", &[k], col(&|c| c.success_stderr))
         .attr("units", "1")
         .attr(
             "description",
-            "density matrix: sqrt(f(1-f)/n) over the n probes; trajectories: sqrt(sum of the \
+            "density matrix: standard error of the mean over the n probes, sd/sqrt(n) (the \
+             sampling error when the probes are random draws); trajectories: sqrt(sum of the \
              probes' squared standard errors)/n",
         );
     g.dataset("time_to_recall", &[k], col(&|c| c.time_to_recall))

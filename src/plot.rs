@@ -825,8 +825,13 @@ pub fn plot_file(root: &Group, name: &str, dir: &Path) -> Result<Written, String
 /// Shorten a long title for the caption (about 45 characters fit beside the figure's other
 /// caption text at slide size).
 fn short(t: &str) -> String {
-    if t.chars().count() > 48 {
-        let s: String = t.chars().take(45).collect();
+    clip(t, 48)
+}
+
+/// `t` cut to at most `n` characters, with an ellipsis when cut.
+fn clip(t: &str, n: usize) -> String {
+    if t.chars().count() > n {
+        let s: String = t.chars().take(n - 1).collect();
         format!("{s}…")
     } else {
         t.to_string()
@@ -1049,7 +1054,7 @@ pub fn recall_figure(root: &Group, title: &str) -> Option<LineFigure> {
         title: format!("recall — {}", short(title)),
         x_label: "flipped sites in the probe".into(),
         y_quantity: "recall success".into(),
-        y_unit: "fraction of probes".into(),
+        y_unit: "probability".into(),
         lines: ls,
     })
 }
@@ -1073,7 +1078,8 @@ fn plot_couplings(root: &Group, title: &str, dir: &Path) -> Result<Written, Stri
     let n = ds.shape[0];
     let idx: Vec<f64> = (0..n).map(|i| i as f64).collect();
     let map = HeatMap {
-        title: format!("{what} — {}", short(title)),
+        // a heat map leaves less width for the caption than a line figure (colour bar)
+        title: clip(&format!("{what} — {title}"), 52),
         x_label: "site j".into(),
         y_label: "site i".into(),
         z_quantity: z.into(),

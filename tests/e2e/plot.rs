@@ -63,7 +63,7 @@ fn figures(dir: &Path) -> Vec<String> {
 #[test]
 fn demo_figures_are_valid_images() {
     let sb = Sandbox::new();
-    let demo = repo().join("demo-data/ring4.toml");
+    let demo = repo().join("configs/ring4-resonator.toml");
     let out = sb.cavern([
         "run".as_ref(),
         demo.as_os_str(),
@@ -100,6 +100,24 @@ fn demo_figures_are_valid_images() {
         spins.contains("#0072B2") && spins.contains("#D55E00"),
         "palette"
     );
+    // the associative-memory demo adds the recall curve and the coupling matrix
+    let demo = repo().join("demo-data/ring6.toml");
+    let out = sb.cavern([
+        "run".as_ref(),
+        demo.as_os_str(),
+        "-o".as_ref(),
+        "ring6.h5".as_ref(),
+        "-q".as_ref(),
+    ]);
+    out.assert_success();
+    sb.cavern(["plot", "ring6.h5"]).assert_success();
+    let dir = sb.join("ring6-figures");
+    let names = figures(&dir);
+    for fig in ["recall", "couplings", "pattern_overlap"] {
+        assert!(names.contains(&format!("{fig}.png")), "{fig}: {names:?}");
+        assert_png(&dir.join(format!("{fig}.png")));
+        assert_svg(&dir.join(format!("{fig}.svg")));
+    }
 }
 
 #[test]
