@@ -6,7 +6,9 @@
 use cavern_model::memory::{learn, overlap, Couplings, LearningRule, Pattern};
 use cavern_model::network::glauber_up;
 use cavern_observe::classical::{descend, glauber, random_patterns};
-use std::process::{Command, Stdio};
+#[path = "../../cavern-evolve/tests/common/python.rs"]
+mod python;
+use python::python;
 
 /// Is every site of `p` aligned with its local field (strictly), i.e. is `p` a fixed point of the
 /// zero-temperature dynamics?
@@ -16,32 +18,6 @@ fn is_fixed_point(j: &Couplings, p: &[i8]) -> bool {
 
 fn fixed_point_count(j: &Couplings, patterns: &[Pattern]) -> usize {
     patterns.iter().filter(|p| is_fixed_point(j, p)).count()
-}
-
-/// Run a Python script (NumPy/SciPy) with `input` on stdin; fails (never skips) without python3.
-fn python(script: &str, input: &str) -> String {
-    use std::io::Write;
-    let mut child = Command::new("python3")
-        .arg("-c")
-        .arg(script)
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .expect("these checks need python3 with NumPy (pip install numpy)");
-    child
-        .stdin
-        .take()
-        .expect("stdin is piped")
-        .write_all(input.as_bytes())
-        .expect("write to python3");
-    let out = child.wait_with_output().expect("python3 runs");
-    assert!(
-        out.status.success(),
-        "python failed: {}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    String::from_utf8(out.stdout).expect("utf-8 output")
 }
 
 #[test]

@@ -4,6 +4,8 @@
 
 #![allow(dead_code)] // each test file uses a different subset
 
+pub mod python;
+
 use cavern_evolve::{evolve_density, DopriOptions, Par, Stats};
 use cavern_model::{MasterEquation, C64};
 
