@@ -445,7 +445,7 @@ fn memory_text(plan: &RunPlan, mem: &MemoryPlan) -> String {
         ks.dedup();
         let _ = writeln!(
             s,
-            "probes      {} probe(s) of pattern(s) {pats:?} with k = {ks:?} corrupted site(s) ({}), seed {}; success: final overlap with the probed pattern > {}",
+            "probes      {} probe(s) of pattern(s) {pats:?} with k = {ks:?} corrupted site(s) ({}), seed {}; recalled: a σᶻ configuration with overlap > {} with the probed pattern at the last sample",
             pp.probes.len(),
             pp.corruption.name(),
             pp.seed,
