@@ -83,14 +83,15 @@ impl Plan {
             .unwrap_or(0)
     }
 
-    /// Bytes of the factors (values 8 B, local pivots, structure) plus, as working memory, two
-    /// fronts of the largest size (the front being factorised and the update matrices waiting
-    /// for their parents, which the largest front bounds in practice but not in theory).
+    /// Bytes of the factors (values 8 B, local pivots, structure) plus, as working memory, four
+    /// fronts of the largest order (the front being factorised and the update matrices waiting
+    /// for their parents; measured peaks were 1.3–1.6 times the factors plus two fronts, see
+    /// docs/performance.md).
     pub fn bytes_estimate(&self) -> u128 {
         let m = self.max_front() as u128;
         8 * self.factor_entries() as u128
             + 8 * (self.rows.len() + 4 * self.n + 6 * self.begin.len()) as u128
-            + 2 * 8 * m * m
+            + 4 * 8 * m * m
     }
 }
 
