@@ -4,10 +4,12 @@
 //! 𝓛ρ = −i[H, ρ] + Σₖ (LₖρLₖ† − ½{Lₖ†Lₖ, ρ}). Three solvers are offered, and a driver that
 //! chooses between them:
 //!
-//! - [`steady_state_direct`]: the d²×d² sparse matrix of 𝓛 ([`liouvillian`]) with one equation
-//!   replaced by the trace condition, factorised by a sparse LU (faer's simplicial left-looking
-//!   LU with partial pivoting, COLAMD column ordering). Exact up to rounding; memory grows with
-//!   the fill-in of the factors, which [`FactorStats`] reports.
+//! - [`steady_state_direct`]: the d²×d² sparse matrix of 𝓛 with one equation replaced by the
+//!   trace condition, in its real form on Hermitian matrices, factorised by a sparse LU
+//!   ([`LuStrategy`]: a multifrontal LU on the symmetrised pattern by default, faer's
+//!   partial-pivoting supernodal LU as checked fallback). Exact up to rounding; memory grows with
+//!   the fill-in of the factors, which the symbolic analysis predicts before the numeric
+//!   factorisation ([`FactorStats`], [`DirectOptions::max_factor_bytes`]).
 //! - [`steady_state_gmres`]: restarted GMRES(m) (Y. Saad & M. H. Schultz, SIAM J. Sci. Stat.
 //!   Comput. 7, 856 (1986)), matrix-free: 𝓛 is applied by [`LindbladRhs`], never as a matrix.
 //!   Memory: about m + 7 d×d complex matrices (Krylov basis, iterate, work vectors, the
@@ -16,9 +18,19 @@
 //! - [`steady_state`]: direct when d² is small enough, otherwise GMRES, then evolution.
 //!
 //! [`relaxation`] finds the eigenvalues of 𝓛 closest to zero (shift-and-invert block Arnoldi),
-//! the spectral gap, and whether the steady state is unique. The steady-state solvers assume a
-//! unique steady state: only the direct solve detects a non-unique one (as a singular matrix);
-//! GMRES and evolution then return *a* steady state. Check [`relaxation`] when in doubt.
+//! the spectral gap, and whether the steady state is unique.
+//!
+//! **Non-unique steady states: what each method detects.**
+//!
+//! | method | detects a non-unique steady state? |
+//! |---|---|
+//! | [`steady_state_direct`] | yes: the trace-bordered matrix is then singular, seen as a reciprocal condition estimate below [`DirectOptions::min_rcond`] ([`SteadyError::Singular`]); it cannot tell the dimension of the zero eigenspace, and a unique but extremely ill-conditioned problem (gap/‖𝓛‖ below about 1e-13) is reported the same way |
+//! | [`relaxation`] | yes, with the dimension (number of zero eigenvalues), up to its basis limit ([`Relaxation::zero_dimension_is_lower_bound`]) |
+//! | [`steady_state_gmres`] | no: GMRES on a singular but consistent system converges to *a* solution (which one depends on the start) |
+//! | [`steady_state_evolve`] | no: the evolution converges to the attractor of its initial state |
+//!
+//! The application (`cavern run`) therefore warns when a GMRES or evolution result was not
+//! checked by the relaxation spectrum.
 //!
 //! **Time-dependent models.** A steady state needs a time-independent generator. Every function
 //! here takes an explicit time `t_eval` at which the envelopes fₖ(t) of the driven terms are
@@ -380,8 +392,10 @@ pub struct SteadyOptions {
     /// Options of the evolution fallback.
     pub evolution: EvolutionOptions,
     /// Largest d² for which the direct solve is tried; `None` = 4096 (d ≤ 64). Above that the
-    /// fill-in of the LU grows fast (measured: d = 32, 0.04 s and 5 MB; d = 80, 10 s and 200 MB;
-    /// d = 128, 440 s and 1.8 GB) while GMRES stays below a second.
+    /// fill-in of the LU grows fast (measured with the multifrontal LU on 2 shared cores, see
+    /// docs/performance.md: d = 80, about 1 s and 0.3 GB; d = 256, minutes and 12 GB) while GMRES,
+    /// when it converges, takes about a second up to d ≈ 100. Larger direct solves are
+    /// available explicitly, guarded by [`DirectOptions::max_factor_bytes`].
     pub direct_max_unknowns: Option<usize>,
 }
 
@@ -1409,7 +1423,8 @@ pub fn steady_state_evolve(
 // ---------------------------------------------------------------------------------------------
 
 /// Steady state with automatic method choice: the direct solve when d² ≤ `direct_max_unknowns`;
-/// if it is skipped or fails for a reason other than a non-unique steady state, GMRES; if GMRES
+/// if it is skipped, refused by its memory guard or fails for a reason other than a non-unique
+/// steady state, GMRES; if GMRES
 /// does not converge, time evolution from I/d. The result's `fallbacks` lists what was skipped or
 /// failed and why.
 ///
