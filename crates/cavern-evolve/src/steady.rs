@@ -316,8 +316,6 @@ pub struct DirectOptions {
     /// Refuse to factorise ([`SteadyError::TooLarge`]) when the predicted bytes
     /// ([`FactorStats::bytes`]) exceed this. `None`: no limit.
     pub max_factor_bytes: Option<u128>,
-    /// Parallelism of the numeric factorisation (faer's supernodal kernels).
-    pub par: Par,
 }
 
 impl Default for DirectOptions {
@@ -327,7 +325,6 @@ impl Default for DirectOptions {
             max_relative_residual: 1e-10,
             strategy: LuStrategy::Multifrontal,
             max_factor_bytes: None,
-            par: Par::Rayon,
         }
     }
 }
@@ -425,8 +422,6 @@ pub struct RelaxationOptions {
     pub strategy: LuStrategy,
     /// Refuse ([`SteadyError::TooLarge`]) when the bound of the LU's bytes exceeds this.
     pub max_factor_bytes: Option<u128>,
-    /// Parallelism of the factorisation.
-    pub par: Par,
 }
 
 impl Default for RelaxationOptions {
@@ -440,7 +435,6 @@ impl Default for RelaxationOptions {
             max_basis: 400,
             strategy: LuStrategy::Multifrontal,
             max_factor_bytes: None,
-            par: Par::Rayon,
         }
     }
 }
@@ -565,7 +559,10 @@ fn liouvillian_triplets(mf: &MasterEquation) -> Vec<(usize, usize, C64)> {
 }
 
 /// Sum duplicates, drop exact zeros, and build a faer column-major sparse matrix.
-fn assemble<T>(n: usize, mut t: Vec<(usize, usize, T)>) -> Result<SparseColMat<usize, T>, SteadyError>
+fn assemble<T>(
+    n: usize,
+    mut t: Vec<(usize, usize, T)>,
+) -> Result<SparseColMat<usize, T>, SteadyError>
 where
     T: Copy + PartialEq + Default + std::ops::AddAssign + faer::traits::ComplexField,
 {
@@ -756,13 +753,6 @@ fn hermitize_normalize(d: usize, x: &mut [C64], method: SteadyMethod) -> Result<
 // Sparse LU
 // ---------------------------------------------------------------------------------------------
 
-fn faer_par(par: Par) -> faer::Par {
-    match par {
-        Par::Seq => faer::Par::Seq,
-        Par::Rayon => faer::Par::rayon(rayon::current_num_threads()),
-    }
-}
-
 /// Groups of the real unknowns (see [`hermitian_from_real`]): the real and imaginary part of
 /// element (r, c) form one group, named by the index r·d + c of the upper element.
 fn element_groups(d: usize) -> Vec<usize> {
@@ -847,7 +837,6 @@ fn factor_real(
     d: usize,
     strategy: LuStrategy,
     max_bytes: Option<u128>,
-    par: Par,
     min_rcond: f64,
     notes: &mut Vec<String>,
 ) -> Result<(RealLu, FactorStats), SteadyError> {
@@ -870,7 +859,7 @@ fn factor_real(
         }
     }
     let start = std::time::Instant::now();
-    let mut lu = sparse_lu::factor(sym, a.as_ref(), faer_par(par)).map_err(|e| match e {
+    let mut lu = sparse_lu::factor(sym, a.as_ref()).map_err(|e| match e {
         // no non-zero left in a column: singular whatever the values
         FactorFailure::StructurallySingular => SteadyError::Singular {
             rcond: 0.0,
@@ -898,7 +887,6 @@ fn factor_real(
                 d,
                 LuStrategy::PartialPivoting,
                 max_bytes,
-                par,
                 min_rcond,
                 notes,
             );
@@ -981,7 +969,6 @@ pub fn steady_state_direct(
         d,
         opts.strategy,
         opts.max_factor_bytes,
-        opts.par,
         opts.min_rcond,
         &mut notes,
     )?;
@@ -1596,11 +1583,10 @@ fn block_arnoldi(
         next_check = k + block.max(k / 8);
         // Ritz values of the leading k×k block
         let hk = faer::Mat::<C64>::from_fn(k, k, |i, c| cols[c].get(i).copied().unwrap_or(ZERO));
-        let eig = hk
-            .eigen()
-            .map_err(|_| SteadyError::DenseEigen { size: k })?;
-        let s = eig.S().column_vector();
-        let u = eig.U();
+        // sequential on purpose: faer's default parallelism would reserve the parallel GEMM's
+        // large packing buffers for this small matrix (see PAR_MIN_ORDER)
+        let (s, u) = small_eigen(hk.as_ref()).map_err(|_| SteadyError::DenseEigen { size: k })?;
+        let s = s.as_ref();
         let rows = q.len();
         // rounding floor of the projected matrix: its entries are inner products formed with
         // errors of about ε‖A‖ (‖A‖ estimated by ‖H_k‖_F), k of them per column
@@ -1657,6 +1643,33 @@ fn block_arnoldi(
             });
         }
     }
+}
+
+/// Eigenvalues and right eigenvectors of a small dense complex matrix, on the calling thread.
+fn small_eigen(
+    a: faer::MatRef<'_, C64>,
+) -> Result<(faer::Col<C64>, faer::Mat<C64>), faer::linalg::evd::EvdError> {
+    use faer::dyn_stack::{MemBuffer, MemStack};
+    use faer::linalg::evd::{self, ComputeEigenvectors};
+    let n = a.nrows();
+    let mut u = faer::Mat::<C64>::zeros(n, n);
+    let mut s = faer::diag::Diag::<C64>::zeros(n);
+    evd::evd_cplx(
+        a,
+        s.as_mut(),
+        None,
+        Some(u.as_mut()),
+        faer::Par::Seq,
+        MemStack::new(&mut MemBuffer::new(evd::evd_scratch::<C64>(
+            n,
+            ComputeEigenvectors::No,
+            ComputeEigenvectors::Yes,
+            faer::Par::Seq,
+            Default::default(),
+        ))),
+        Default::default(),
+    )?;
+    Ok((s.column_vector().to_owned(), u))
 }
 
 /// Zeros first; then by real part descending, where real parts closer than `resolution` (in a
@@ -1748,7 +1761,6 @@ pub fn relaxation(
         d,
         opts.strategy,
         opts.max_factor_bytes,
-        opts.par,
         0.0,
         &mut Vec::new(),
     )?;

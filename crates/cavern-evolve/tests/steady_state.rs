@@ -19,8 +19,8 @@
 
 mod common;
 
-use cavern_evolve::steady::{self, frozen};
 use cavern_evolve::steady::LuStrategy;
+use cavern_evolve::steady::{self, frozen};
 use cavern_evolve::{
     lindblad, DirectOptions, EvolutionOptions, GmresOptions, LindbladRhs, Par, RelaxationOptions,
     SteadyError, SteadyMethod, SteadyOptions,
@@ -629,7 +629,6 @@ fn lu_strategies_agree_with_the_dense_reference() {
         for strategy in [LuStrategy::Multifrontal, LuStrategy::PartialPivoting] {
             let opts = DirectOptions {
                 strategy,
-                par: Par::Seq,
                 ..Default::default()
             };
             let s = steady::steady_state_direct(&me, 0.0, &opts).unwrap();

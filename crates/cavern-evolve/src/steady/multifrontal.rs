@@ -29,13 +29,13 @@ use faer::linalg::triangular_solve::{
     solve_lower_triangular_in_place, solve_unit_lower_triangular_in_place,
     solve_unit_upper_triangular_in_place, solve_upper_triangular_in_place,
 };
+use faer::reborrow::{Reborrow, ReborrowMut};
 use faer::sparse::linalg::amd;
 use faer::sparse::linalg::cholesky::{
     factorize_symbolic_cholesky, CholeskySymbolicParams, SymbolicCholeskyRaw, SymmetricOrdering,
 };
 use faer::sparse::linalg::SupernodalThreshold;
 use faer::sparse::{SparseColMat, SparseColMatRef, Triplet};
-use faer::reborrow::{Reborrow, ReborrowMut};
 use faer::{Accum, MatMut, MatRef, Par};
 
 /// Fronts at least this large use the parallel dense kernels.
@@ -322,7 +322,9 @@ pub(crate) fn factor(
         }
         // extend-add the children's update matrices
         for &c in &children[s] {
-            let upd = updates[c].take().expect("child processed before its parent");
+            let upd = updates[c]
+                .take()
+                .expect("child processed before its parent");
             let rc = &plan.rows[plan.rows_ptr[c]..plan.rows_ptr[c + 1]];
             let q = rc.len();
             for (cj, &gj) in rc.iter().enumerate() {
@@ -407,7 +409,17 @@ pub(crate) fn factor(
 }
 
 impl Factors {
-    fn blocks(&self, s: usize) -> (usize, usize, usize, &[usize], MatRef<'_, f64>, MatRef<'_, f64>) {
+    fn blocks(
+        &self,
+        s: usize,
+    ) -> (
+        usize,
+        usize,
+        usize,
+        &[usize],
+        MatRef<'_, f64>,
+        MatRef<'_, f64>,
+    ) {
         let pl = &self.plan;
         let (b, e) = (pl.begin[s], pl.end[s]);
         let k = e - b;
@@ -458,13 +470,21 @@ impl Factors {
             blk.resize(k * nrhs, 0.0);
             for c in 0..nrhs {
                 for i in 0..k {
-                    let src = if transpose { b + i } else { b + self.piv[b + i] };
+                    let src = if transpose {
+                        b + i
+                    } else {
+                        b + self.piv[b + i]
+                    };
                     blk[c * k + i] = ym[(src, c)];
                 }
             }
             let mut xb = MatMut::from_column_major_slice_mut(&mut blk, k, nrhs);
             if transpose {
-                solve_lower_triangular_in_place(lp.subrows(0, k).transpose(), xb.rb_mut(), Par::Seq);
+                solve_lower_triangular_in_place(
+                    lp.subrows(0, k).transpose(),
+                    xb.rb_mut(),
+                    Par::Seq,
+                );
             } else {
                 solve_unit_lower_triangular_in_place(lp.subrows(0, k), xb.rb_mut(), Par::Seq);
             }
@@ -473,9 +493,23 @@ impl Factors {
                 ext.resize(r * nrhs, 0.0);
                 let mut e = MatMut::from_column_major_slice_mut(&mut ext, r, nrhs);
                 if transpose {
-                    matmul(e.rb_mut(), Accum::Replace, u12.transpose(), xb.rb(), 1.0, Par::Seq);
+                    matmul(
+                        e.rb_mut(),
+                        Accum::Replace,
+                        u12.transpose(),
+                        xb.rb(),
+                        1.0,
+                        Par::Seq,
+                    );
                 } else {
-                    matmul(e.rb_mut(), Accum::Replace, lp.subrows(k, r), xb.rb(), 1.0, Par::Seq);
+                    matmul(
+                        e.rb_mut(),
+                        Accum::Replace,
+                        lp.subrows(k, r),
+                        xb.rb(),
+                        1.0,
+                        Par::Seq,
+                    );
                 }
                 for c in 0..nrhs {
                     for (t, &gi) in rs.iter().enumerate() {
@@ -511,7 +545,14 @@ impl Factors {
                 }
                 let e = MatRef::from_column_major_slice(&ext, r, nrhs);
                 if transpose {
-                    matmul(xb.rb_mut(), Accum::Add, lp.subrows(k, r).transpose(), e, -1.0, Par::Seq);
+                    matmul(
+                        xb.rb_mut(),
+                        Accum::Add,
+                        lp.subrows(k, r).transpose(),
+                        e,
+                        -1.0,
+                        Par::Seq,
+                    );
                 } else {
                     matmul(xb.rb_mut(), Accum::Add, u12, e, -1.0, Par::Seq);
                 }

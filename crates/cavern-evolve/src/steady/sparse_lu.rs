@@ -18,12 +18,10 @@
 //! nnz(U) ≤ nnz(R), which the analysis computes; faer keeps update matrices while it factorises,
 //! so this bounds the factors, not the process's peak (benches/steady_vs_scipy.py measures both).
 
+use super::multifrontal;
 use faer::dyn_stack::{MemBuffer, MemStack, StackReq};
 use faer::perm::PermRef;
-use faer::sparse::linalg::lu::supernodal::{
-    self, SupernodalLu, SymbolicSupernodalLu,
-};
-use super::multifrontal;
+use faer::sparse::linalg::lu::supernodal::{self, SupernodalLu, SymbolicSupernodalLu};
 use faer::sparse::linalg::{colamd, qr, LuError, SymbolicSupernodalParams};
 use faer::sparse::SparseColMatRef;
 use faer::{MatMut, Par};
@@ -216,16 +214,17 @@ pub(crate) enum FactorFailure {
 pub(crate) fn factor(
     sym: Symbolic,
     a: SparseColMatRef<'_, usize, f64>,
-    par: Par,
 ) -> Result<RealLu, FactorFailure> {
+    // faer is built without its "rayon" feature (see crates/cavern-evolve/Cargo.toml)
+    let par = Par::Seq;
     let n = a.ncols();
     let norm1 = (0..n)
         .map(|j| a.val_of_col(j).iter().map(|v| v.abs()).sum::<f64>())
         .fold(0.0, f64::max);
     let engine = match sym {
-        Symbolic::Multifrontal(plan) => Engine::Multifrontal(
-            multifrontal::factor(plan, a, par).map_err(FactorFailure::Other)?,
-        ),
+        Symbolic::Multifrontal(plan) => {
+            Engine::Multifrontal(multifrontal::factor(plan, a, par).map_err(FactorFailure::Other)?)
+        }
         Symbolic::PartialPivoting(sym) => Engine::PartialPivoting(factor_pp(sym, a, par)?),
     };
     Ok(RealLu {
@@ -352,12 +351,18 @@ impl RealLu {
                 break;
             }
             est = y_norm;
-            let mut xi: Vec<f64> = x.iter().map(|&v| if v >= 0.0 { 1.0 } else { -1.0 }).collect();
-            self.solve_transpose(&mut xi);
-            let (j, zmax) = xi
+            let mut xi: Vec<f64> = x
                 .iter()
-                .enumerate()
-                .fold((0, -1.0), |acc, (i, v)| if v.abs() > acc.1 { (i, v.abs()) } else { acc });
+                .map(|&v| if v >= 0.0 { 1.0 } else { -1.0 })
+                .collect();
+            self.solve_transpose(&mut xi);
+            let (j, zmax) = xi.iter().enumerate().fold((0, -1.0), |acc, (i, v)| {
+                if v.abs() > acc.1 {
+                    (i, v.abs())
+                } else {
+                    acc
+                }
+            });
             if !zmax.is_finite() {
                 return 0.0;
             }
