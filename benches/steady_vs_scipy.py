@@ -23,7 +23,7 @@ is stopped and reported as such.
 Usage:
   python3 benches/steady_vs_scipy.py --levels 5 --repeat 2            # d = 80, both, A/B/A/B
   python3 benches/steady_vs_scipy.py --levels 16 --repeat 1 --scipy-timeout 900   # d = 256
-  python3 benches/steady_vs_scipy.py --sites 6 --levels 16 --method iterative --no-scipy  # d = 1024
+  python3 benches/steady_vs_scipy.py --sites 6 --levels 16 --method iterative --tolerance 1e-8 --no-scipy  # d = 1024
 Options: --config (default benches/steady256.toml; --sites/--levels override its size),
 --cavern PATH (default target/release/cavern, built unless --no-build).
 Writes target/perf/steady_vs_scipy-d{d}.json.
@@ -47,7 +47,7 @@ sys.path.insert(0, str(ROOT / "benches"))
 from e2e_vs_scipy import blas_info, liouvillian, model_from_config, observables_from_diag, operators  # noqa: E402
 
 
-def sized_config(base, sites, levels, method):
+def sized_config(base, sites, levels, method, tolerance=None):
     """The base config with the requested number of sites and levels (same parameters)."""
     text = Path(base).read_text()
     cfg = tomllib.loads(text)
@@ -62,6 +62,8 @@ def sized_config(base, sites, levels, method):
             line = f"levels = {levels}"
         elif line.startswith("method ="):
             line = f'method = "{method}"'
+            if tolerance is not None:
+                line += f"\ntolerance = {tolerance}"
         lines.append(line)
     text = "\n".join(lines) + "\n"
     if sites != n0:
@@ -139,6 +141,8 @@ def timed(cmd, timeout):
                                timeout=timeout, check=True)
         except subprocess.TimeoutExpired:
             return None, None, time.perf_counter() - t0
+        except subprocess.CalledProcessError as e:
+            sys.exit(f"{' '.join(cmd)} failed ({e.returncode}):\n{e.stderr}")
         wall = time.perf_counter() - t0
         rss = int(Path(tf.name).read_text().split()[-1]) * 1024
     return p, rss, wall
@@ -178,6 +182,8 @@ def main():
     ap.add_argument("--sites", type=int, default=None)
     ap.add_argument("--levels", type=int, default=None)
     ap.add_argument("--method", default="direct", choices=["direct", "iterative"])
+    ap.add_argument("--tolerance", type=float, default=None,
+                    help="[steady_state] tolerance for the iterative solver (default: cavern's 1e-11)")
     ap.add_argument("--repeat", type=int, default=2)
     ap.add_argument("--threads", type=int, default=2)
     ap.add_argument("--scipy-spec", default="MMD_AT_PLUS_A+sym")
@@ -192,7 +198,7 @@ def main():
         return
     if not args.no_build:
         subprocess.run(["cargo", "build", "--release", "--quiet"], cwd=ROOT, check=True)
-    text = sized_config(args.config, args.sites, args.levels, args.method)
+    text = sized_config(args.config, args.sites, args.levels, args.method, args.tolerance)
     cfg = tomllib.loads(text)
     d = 2 ** cfg["sites"]["count"] * cfg["modes"][0]["levels"]
     print(f"d = {d} ({d * d} unknowns), cavern method {args.method}, {os.cpu_count()} cores; BLAS {blas_info()}")
