@@ -474,8 +474,7 @@ pub struct Relaxation {
     pub basis_size: usize,
     /// Block size of the run reported.
     pub block_size: usize,
-    /// Non-zeros of 𝓛 − σI (factorised by faer's sparse LU, which picks a supernodal
-    /// factorisation for large fill and does not expose the sizes of its factors).
+    /// Non-zeros of the real form of 𝓛 − σI that was factorised.
     pub matrix_nnz: usize,
 }
 
@@ -924,14 +923,15 @@ fn factor_real(
 /// The matrix factorised is real: 𝓛 acting on the real coordinates of Hermitian matrices (see
 /// [`liouvillian`] for the complex one; the real one has the same d² unknowns, the same
 /// eigenvalues and the same pattern folded onto the upper triangle, at a quarter of the
-/// arithmetic). The LU is faer's supernodal LU with partial pivoting, after a fill-reducing
-/// column ordering ([`DirectOptions::ordering`]). Before the numeric factorisation the symbolic
-/// analysis bounds the factors' size (George & Ng 1987, see [`FactorStats`]), and the solve is
-/// refused ([`SteadyError::TooLarge`]) if that exceeds [`DirectOptions::max_factor_bytes`].
-/// After it, a Hager–Higham estimate of the reciprocal condition number decides whether the
-/// bordered matrix is singular, i.e. the steady state not unique ([`SteadyError::Singular`]).
-/// The solution is made exactly Hermitian and normalised to trace 1 before the residual is
-/// computed.
+/// arithmetic). The LU is chosen by [`DirectOptions::strategy`]: by default a multifrontal LU
+/// on the symmetrised pattern, whose accuracy is probed and which falls back to faer's
+/// partial-pivoting LU when needed (noted in `fallbacks`). Before the numeric factorisation the
+/// symbolic analysis predicts the factors' size (see [`FactorStats`]), and the solve is refused
+/// ([`SteadyError::TooLarge`]) if that exceeds [`DirectOptions::max_factor_bytes`]. After it, a
+/// Hager–Higham estimate of the reciprocal condition number decides whether the bordered matrix
+/// is singular, i.e. the steady state not unique ([`SteadyError::Singular`]). The solution gets
+/// up to 3 steps of iterative refinement, is made exactly Hermitian and normalised to trace 1
+/// before the residual is computed.
 ///
 /// # Errors
 /// [`SteadyError::Singular`] (non-unique steady state), [`SteadyError::TooLarge`],
@@ -1702,10 +1702,12 @@ fn sort_spectrum(
 
 /// The eigenvalues of 𝓛 (at `t_eval`) nearest a small negative shift σ, by shift-and-invert
 /// block Arnoldi: the eigenvalues μ of (𝓛 − σI)⁻¹ of largest modulus are λ = σ + 1/μ with λ
-/// nearest σ, i.e. (for small |σ|) nearest zero. (𝓛 − σI) is factorised once by faer's sparse
-/// LU (supernodal when the fill is large; measured 1 s for d = 80, 30 s for d = 128); the Ritz
-/// values come from faer's dense complex eigensolver on the small projected matrix. Memory: the
-/// factors plus `max_basis` vectors of d² complex numbers.
+/// nearest σ, i.e. (for small |σ|) nearest zero. (𝓛 − σI), in its real form on Hermitian
+/// matrices (same eigenvalues), is factorised once by the sparse LU of
+/// [`RelaxationOptions::strategy`], with the memory guard [`RelaxationOptions::max_factor_bytes`]
+/// (costs as for [`steady_state_direct`]); a complex Krylov vector is solved as its real and
+/// imaginary parts. The Ritz values come from faer's dense complex eigensolver on the small
+/// projected matrix. Memory: the factors plus `max_basis` vectors of d² complex numbers.
 ///
 /// Reported: the eigenvalues, zeros first and then by real part descending; the dimension of the
 /// zero eigenspace (|λ| ≤ zero_tol·S, S = [`generator_scale`]) and `degenerate: Some(k)` when it
