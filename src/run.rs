@@ -841,6 +841,9 @@ fn solve_steady(
     opts.evolution.max_time = sp.max_time;
     opts.evolution.dopri.rtol = plan.solver.rtol.min(opts.evolution.dopri.rtol);
     opts.evolution.dopri.atol = plan.solver.atol.min(opts.evolution.dopri.atol);
+    // memory guard of the sparse LU: its predicted size against the allowed share of memory
+    let allowed = physical_memory().map(|p| (p as f64 * plan.solver.memory_share) as u128);
+    opts.direct.max_factor_bytes = allowed;
     let t = sp.at_time;
     let solved = match sp.method {
         SteadyRequest::Auto => steady::steady_state(me, t, &opts),
@@ -853,6 +856,7 @@ fn solve_steady(
     if sp.relaxation_rates > 0 {
         let ropts = steady::RelaxationOptions {
             count: sp.relaxation_rates,
+            max_factor_bytes: allowed,
             ..Default::default()
         };
         match steady::relaxation(me, t, &ropts) {
@@ -865,6 +869,15 @@ fn solve_steady(
         Ok(st) if degenerate.is_none() => (Some(st), false),
         Ok(_) => (None, true),
         Err(SteadyError::Singular { .. }) => (None, true),
+        Err(e @ SteadyError::TooLarge { .. }) => {
+            return Err(AppError::Input(format!(
+                "{}: [steady_state] method = \"direct\": {e} ([solver] memory_share = {} of this \
+                 machine's memory); use method = \"iterative\" (GMRES, matrix-free) or \"auto\", \
+                 which falls back to it, or reduce the model",
+                plan.path.display(),
+                plan.solver.memory_share
+            )))
+        }
         Err(e) => {
             return Err(AppError::Runtime(format!(
                 "{}: the steady state could not be computed: {e}",
@@ -872,6 +885,18 @@ fn solve_steady(
             )))
         }
     };
+    // GMRES and time evolution return one steady state even when several exist; only the direct
+    // LU (singular bordered matrix) and the relaxation spectrum (several zero eigenvalues) see it
+    if let Some(st) = &state {
+        if st.method != steady::SteadyMethod::Direct && relaxation.is_none() {
+            warnings.push(format!(
+                "the uniqueness of the steady state was not checked: {} finds one steady state even \
+                 when several exist; set [steady_state] relaxation_rates > 0 or method = \"direct\" \
+                 to check it",
+                st.method
+            ));
+        }
+    }
     if not_unique {
         let dim = degenerate
             .map(|k| format!(" (zero eigenspace of dimension {k})"))

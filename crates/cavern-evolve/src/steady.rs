@@ -4,10 +4,12 @@
 //! 𝓛ρ = −i[H, ρ] + Σₖ (LₖρLₖ† − ½{Lₖ†Lₖ, ρ}). Three solvers are offered, and a driver that
 //! chooses between them:
 //!
-//! - [`steady_state_direct`]: the d²×d² sparse matrix of 𝓛 ([`liouvillian`]) with one equation
-//!   replaced by the trace condition, factorised by a sparse LU (faer's simplicial left-looking
-//!   LU with partial pivoting, COLAMD column ordering). Exact up to rounding; memory grows with
-//!   the fill-in of the factors, which [`FactorStats`] reports.
+//! - [`steady_state_direct`]: the d²×d² sparse matrix of 𝓛 with one equation replaced by the
+//!   trace condition, in its real form on Hermitian matrices, factorised by a sparse LU
+//!   ([`LuStrategy`]: a multifrontal LU on the symmetrised pattern by default, faer's
+//!   partial-pivoting supernodal LU as checked fallback). Exact up to rounding; memory grows with
+//!   the fill-in of the factors, which the symbolic analysis predicts before the numeric
+//!   factorisation ([`FactorStats`], [`DirectOptions::max_factor_bytes`]).
 //! - [`steady_state_gmres`]: restarted GMRES(m) (Y. Saad & M. H. Schultz, SIAM J. Sci. Stat.
 //!   Comput. 7, 856 (1986)), matrix-free: 𝓛 is applied by [`LindbladRhs`], never as a matrix.
 //!   Memory: about m + 7 d×d complex matrices (Krylov basis, iterate, work vectors, the
@@ -16,9 +18,19 @@
 //! - [`steady_state`]: direct when d² is small enough, otherwise GMRES, then evolution.
 //!
 //! [`relaxation`] finds the eigenvalues of 𝓛 closest to zero (shift-and-invert block Arnoldi),
-//! the spectral gap, and whether the steady state is unique. The steady-state solvers assume a
-//! unique steady state: only the direct solve detects a non-unique one (as a singular matrix);
-//! GMRES and evolution then return *a* steady state. Check [`relaxation`] when in doubt.
+//! the spectral gap, and whether the steady state is unique.
+//!
+//! **Non-unique steady states: what each method detects.**
+//!
+//! | method | detects a non-unique steady state? |
+//! |---|---|
+//! | [`steady_state_direct`] | yes: the trace-bordered matrix is then singular, seen as a reciprocal condition estimate below [`DirectOptions::min_rcond`] ([`SteadyError::Singular`]); it cannot tell the dimension of the zero eigenspace, and a unique but extremely ill-conditioned problem (gap/‖𝓛‖ below about 1e-13) is reported the same way |
+//! | [`relaxation`] | yes, with the dimension (number of zero eigenvalues), up to its basis limit ([`Relaxation::zero_dimension_is_lower_bound`]) |
+//! | [`steady_state_gmres`] | no: GMRES on a singular but consistent system converges to *a* solution (which one depends on the start) |
+//! | [`steady_state_evolve`] | no: the evolution converges to the attractor of its initial state |
+//!
+//! The application (`cavern run`) therefore warns when a GMRES or evolution result was not
+//! checked by the relaxation spectrum.
 //!
 //! **Time-dependent models.** A steady state needs a time-independent generator. Every function
 //! here takes an explicit time `t_eval` at which the envelopes fₖ(t) of the driven terms are
@@ -52,16 +64,15 @@ use crate::lindblad::{self, LindbladRhs};
 use crate::par::{for_chunks, sum_ranges, Par};
 use crate::EvolveError;
 use cavern_model::{MasterEquation, SparseOp};
-use faer::dyn_stack::{MemBuffer, MemStack};
-use faer::linalg::solvers::Solve;
-use faer::perm::PermRef;
-use faer::sparse::linalg::colamd;
-use faer::sparse::linalg::lu::simplicial::{self, SimplicialLu};
-use faer::sparse::linalg::solvers::{Lu, SymbolicLu};
-use faer::sparse::linalg::LuError;
 use faer::sparse::{SparseColMat, Triplet};
 use num_complex::Complex64 as C64;
+use sparse_lu::{FactorFailure, RealLu};
 use std::fmt;
+
+mod multifrontal;
+mod sparse_lu;
+
+pub use sparse_lu::LuStrategy;
 
 /// The linear-algebra crate whose sparse matrix [`liouvillian`] returns.
 pub use faer;
@@ -107,16 +118,18 @@ pub enum SteadyError {
     /// The model cannot be handled (from the right-hand side or the integrator).
     #[error(transparent)]
     Evolve(#[from] EvolveError),
-    /// The sparse LU found a (numerically) zero pivot: 𝓛 with the trace condition is singular,
-    /// i.e. the steady state is not unique (or the problem is hopelessly ill-conditioned).
+    /// The bordered matrix (𝓛 with one equation replaced by the trace condition) is singular to
+    /// working precision: its estimated reciprocal condition number is below the threshold (or a
+    /// pivot is exactly zero), i.e. the steady state is not unique (or the problem is hopelessly
+    /// ill-conditioned).
     #[error(
-        "the steady state is not unique (or numerically singular): the smallest LU pivot is \
-         {min_pivot_ratio:e} of the largest (threshold {threshold:e}); check `relaxation` for the \
-         dimension of the zero eigenspace"
+        "the steady state is not unique (or numerically singular): the trace-bordered Liouvillian \
+         has estimated reciprocal condition number {rcond:e} (threshold {threshold:e}); check \
+         `relaxation` for the dimension of the zero eigenspace"
     )]
     Singular {
-        /// min |Uⱼⱼ| / max |Uⱼⱼ| over the pivots.
-        min_pivot_ratio: f64,
+        /// Estimated 1/(‖A‖₁‖A⁻¹‖₁) of the bordered matrix A (0 for an exactly zero pivot).
+        rcond: f64,
         /// The threshold it fell below.
         threshold: f64,
     },
@@ -127,6 +140,22 @@ pub enum SteadyError {
         n: usize,
         /// faer's message.
         reason: String,
+    },
+    /// The symbolic analysis predicts LU factors larger than the memory allowed
+    /// ([`DirectOptions::max_factor_bytes`]); nothing was factorised.
+    #[error(
+        "sparse LU of the {n}×{n} Liouvillian refused: its factors may need up to {needed} bytes \
+         (George–Ng bound, nnz(L), nnz(U) ≤ {nnz_bound}), more than the allowed {allowed} bytes"
+    )]
+    TooLarge {
+        /// Matrix size d².
+        n: usize,
+        /// The bound on the factors' non-zeros.
+        nnz_bound: usize,
+        /// Predicted bytes (bound).
+        needed: u128,
+        /// Allowed bytes.
+        allowed: u128,
     },
     /// A direct solution's residual is above the accepted level.
     #[error(
@@ -212,21 +241,40 @@ pub enum SteadyError {
 }
 
 /// Memory and quality of a sparse LU factorisation.
+///
+/// The LU factorises the real d²×d² matrix of 𝓛 acting on Hermitian matrices (see
+/// [`steady_state_direct`]). Sizes come from the symbolic analysis, known before the numeric
+/// factorisation (what the memory guard [`DirectOptions::max_factor_bytes`] checks): exact for
+/// the multifrontal LU (dense supernode blocks counted in full), George–Ng upper bounds for
+/// faer's partial-pivoting LU, whose actual fill faer does not expose.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct FactorStats {
     /// Order of the matrix (d²).
     pub n: usize,
-    /// Non-zeros of the factorised matrix.
+    /// Non-zeros of the factorised (real) matrix.
     pub nnz_matrix: usize,
-    /// Non-zeros of the unit lower factor L (diagonal included).
+    /// Entries of the lower factor L (diagonal included); a bound for partial pivoting.
     pub nnz_l: usize,
-    /// Non-zeros of the upper factor U.
+    /// Entries of the upper factor U; a bound for partial pivoting.
     pub nnz_u: usize,
-    /// Bytes held by the factors: values (16 B) and row indices (8 B) of L and U, their column
-    /// pointers, and the four permutation arrays.
+    /// Predicted bytes: multifrontal, the factors' values and structure plus two fronts of the
+    /// largest order (working memory); partial pivoting, values (8 B) and row indices (8 B) of L
+    /// and U at the George–Ng bounds.
     pub bytes: usize,
-    /// min |Uⱼⱼ| / max |Uⱼⱼ|: a cheap singularity indicator (not a condition number).
-    pub min_pivot_ratio: f64,
+    /// Estimated reciprocal condition number 1/(‖A‖₁‖A⁻¹‖₁) of the factorised matrix A (an
+    /// upper bound, usually within a factor 3; Hager–Higham estimator).
+    pub rcond: f64,
+    /// The LU used (after any fallback).
+    pub strategy: LuStrategy,
+    /// Largest |multiplier| in the off-diagonal blocks of L: 1 for partial pivoting; for the
+    /// multifrontal LU (pivots restricted to supernode blocks) a pivot-growth indicator.
+    pub max_multiplier: f64,
+    /// Iterative-refinement steps applied to the solution (each one solve with the factors).
+    pub refinement_steps: usize,
+    /// Wall time of the symbolic analysis (ordering included), seconds.
+    pub analyse_seconds: f64,
+    /// Wall time of the numeric factorisation, seconds.
+    pub factor_seconds: f64,
 }
 
 /// A steady state and how it was obtained.
@@ -254,21 +302,29 @@ pub struct SteadySolution {
 /// Options of [`steady_state_direct`].
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct DirectOptions {
-    /// Refuse the solution ([`SteadyError::Singular`]) when the smallest LU pivot is below this
-    /// fraction of the largest. Default 1e3·ε ≈ 2.2e-13: a rank-deficient matrix (non-unique
-    /// steady state) leaves a pivot made of rounding errors, of order ε times the entries it was
-    /// computed from.
-    pub min_pivot_ratio: f64,
+    /// Refuse the solution ([`SteadyError::Singular`]) when the estimated reciprocal condition
+    /// number of the bordered matrix is below this. Default 1e3·ε ≈ 2.2e-13: a rank-deficient
+    /// matrix (non-unique steady state) leaves a pivot made of rounding errors, of order ε times
+    /// the entries it was computed from, hence rcond of order ε.
+    pub min_rcond: f64,
     /// Refuse the solution ([`SteadyError::Inaccurate`]) when its relative residual exceeds this
     /// (default 1e-10; a backward-stable solve gives a few ε).
     pub max_relative_residual: f64,
+    /// The sparse LU (default [`LuStrategy::Multifrontal`], which falls back to
+    /// [`LuStrategy::PartialPivoting`] when its restricted pivoting is not accurate enough).
+    pub strategy: LuStrategy,
+    /// Refuse to factorise ([`SteadyError::TooLarge`]) when the predicted bytes
+    /// ([`FactorStats::bytes`]) exceed this. `None`: no limit.
+    pub max_factor_bytes: Option<u128>,
 }
 
 impl Default for DirectOptions {
     fn default() -> Self {
         Self {
-            min_pivot_ratio: 1e3 * f64::EPSILON,
+            min_rcond: 1e3 * f64::EPSILON,
             max_relative_residual: 1e-10,
+            strategy: LuStrategy::Multifrontal,
+            max_factor_bytes: None,
         }
     }
 }
@@ -333,8 +389,10 @@ pub struct SteadyOptions {
     /// Options of the evolution fallback.
     pub evolution: EvolutionOptions,
     /// Largest d² for which the direct solve is tried; `None` = 4096 (d ≤ 64). Above that the
-    /// fill-in of the LU grows fast (measured: d = 32, 0.04 s and 5 MB; d = 80, 10 s and 200 MB;
-    /// d = 128, 440 s and 1.8 GB) while GMRES stays below a second.
+    /// fill-in of the LU grows fast (measured with the multifrontal LU on 2 shared cores, see
+    /// docs/performance.md: d = 80, about 1 s and 0.3 GB; d = 256, minutes and 12 GB) while GMRES,
+    /// when it converges, takes about a second up to d ≈ 100. Larger direct solves are
+    /// available explicitly, guarded by [`DirectOptions::max_factor_bytes`].
     pub direct_max_unknowns: Option<usize>,
 }
 
@@ -359,6 +417,11 @@ pub struct RelaxationOptions {
     pub block: usize,
     /// Largest Krylov basis (vectors of length d², default 400).
     pub max_basis: usize,
+    /// The LU of 𝓛 − σI (as [`DirectOptions::strategy`]; the multifrontal LU is used as it is,
+    /// its accuracy only affecting the Ritz residuals, which are checked).
+    pub strategy: LuStrategy,
+    /// Refuse ([`SteadyError::TooLarge`]) when the bound of the LU's bytes exceeds this.
+    pub max_factor_bytes: Option<u128>,
 }
 
 impl Default for RelaxationOptions {
@@ -370,6 +433,8 @@ impl Default for RelaxationOptions {
             zero_tol: f64::EPSILON.sqrt(),
             block: 4,
             max_basis: 400,
+            strategy: LuStrategy::Multifrontal,
+            max_factor_bytes: None,
         }
     }
 }
@@ -409,8 +474,7 @@ pub struct Relaxation {
     pub basis_size: usize,
     /// Block size of the run reported.
     pub block_size: usize,
-    /// Non-zeros of 𝓛 − σI (factorised by faer's sparse LU, which picks a supernodal
-    /// factorisation for large fill and does not expose the sizes of its factors).
+    /// Non-zeros of the real form of 𝓛 − σI that was factorised.
     pub matrix_nnz: usize,
 }
 
@@ -494,12 +558,15 @@ fn liouvillian_triplets(mf: &MasterEquation) -> Vec<(usize, usize, C64)> {
 }
 
 /// Sum duplicates, drop exact zeros, and build a faer column-major sparse matrix.
-fn assemble(
+fn assemble<T>(
     n: usize,
-    mut t: Vec<(usize, usize, C64)>,
-) -> Result<SparseColMat<usize, C64>, SteadyError> {
+    mut t: Vec<(usize, usize, T)>,
+) -> Result<SparseColMat<usize, T>, SteadyError>
+where
+    T: Copy + PartialEq + Default + std::ops::AddAssign + faer::traits::ComplexField,
+{
     t.sort_unstable_by_key(|&(r, c, _)| (c, r));
-    let mut merged: Vec<Triplet<usize, usize, C64>> = Vec::with_capacity(t.len());
+    let mut merged: Vec<Triplet<usize, usize, T>> = Vec::with_capacity(t.len());
     for (r, c, v) in t {
         match merged.last_mut() {
             Some(last) if last.row == r && last.col == c => last.val += v,
@@ -510,11 +577,68 @@ fn assemble(
             }),
         }
     }
-    merged.retain(|e| e.val != ZERO);
+    merged.retain(|e| e.val != T::default());
     SparseColMat::try_new_from_triplets(n, n, &merged).map_err(|e| SteadyError::Factorization {
         n,
         reason: format!("{e:?}"),
     })
+}
+
+/// Real coordinates of Hermitian matrices: y ∈ ℝ^{d²} with y[r·d + c] = Re ρ_rc for r ≤ c and
+/// y[c·d + r] = Im ρ_rc for r < c. Every Hermitian ρ has exactly one such y, and the index pattern
+/// is that of vec(ρ), so the real matrix below has the (folded) pattern of the complex one.
+fn hermitian_from_real(d: usize, y: &[f64], rho: &mut [C64]) {
+    for r in 0..d {
+        rho[r * d + r] = C64::new(y[r * d + r], 0.0);
+        for c in r + 1..d {
+            let v = C64::new(y[r * d + c], y[c * d + r]);
+            rho[r * d + c] = v;
+            rho[c * d + r] = v.conj();
+        }
+    }
+}
+
+/// Triplets of 𝓛 as a real-linear map on the real coordinates of Hermitian matrices (see
+/// [`hermitian_from_real`]), with `shift` added to the diagonal. 𝓛 maps Hermitian matrices to
+/// Hermitian matrices, and ℂ^{d×d} is the complexification of the Hermitian matrices, so this real
+/// d²×d² matrix has exactly the eigenvalues of 𝓛 (with multiplicity), and its kernel is the set
+/// of Hermitian steady states. Each complex equation (r, c), r ≤ c, of 𝓛ρ gives its real part
+/// (row r·d + c) and, for r < c, its imaginary part (row c·d + r); a term v·ρ_ij with
+/// ρ_ij = y_a + i·s·y_b (s = +1 for i < j, −1 for i > j, y_b absent for i = j) contributes
+/// Re(v)y_a − s·Im(v)y_b to the real part and Im(v)y_a + s·Re(v)y_b to the imaginary part.
+/// Real arithmetic costs about a quarter of complex arithmetic in the LU.
+fn hermitian_triplets(mf: &MasterEquation, shift: f64) -> Vec<(usize, usize, f64)> {
+    let d = mf.space.dim();
+    let complex = liouvillian_triplets(mf);
+    let mut t = Vec::with_capacity(2 * complex.len() + d * d);
+    for (row, col, v) in complex {
+        let (r, c) = (row / d, row % d);
+        if r > c {
+            continue;
+        }
+        let (i, j) = (col / d, col % d);
+        let (a, b, s) = match i.cmp(&j) {
+            std::cmp::Ordering::Less => (i * d + j, Some(j * d + i), 1.0),
+            std::cmp::Ordering::Greater => (j * d + i, Some(i * d + j), -1.0),
+            std::cmp::Ordering::Equal => (col, None, 0.0),
+        };
+        let re_row = r * d + c;
+        t.push((re_row, a, v.re));
+        if let Some(b) = b {
+            t.push((re_row, b, -s * v.im));
+        }
+        if r < c {
+            let im_row = c * d + r;
+            t.push((im_row, a, v.im));
+            if let Some(b) = b {
+                t.push((im_row, b, s * v.re));
+            }
+        }
+    }
+    if shift != 0.0 {
+        t.extend((0..d * d).map(|i| (i, i, shift)));
+    }
+    t
 }
 
 /// The Liouvillian 𝓛 at `t_eval` as a d²×d² sparse matrix on row-major vec(ρ) (index r·d + c),
@@ -628,122 +752,159 @@ fn hermitize_normalize(d: usize, x: &mut [C64], method: SteadyMethod) -> Result<
 // Sparse LU
 // ---------------------------------------------------------------------------------------------
 
-/// A simplicial sparse LU with its permutations: P A Q = L U.
-struct SparseLu {
-    lu: SimplicialLu<usize, C64>,
-    row_fwd: Vec<usize>,
-    row_inv: Vec<usize>,
-    col_fwd: Vec<usize>,
-    col_inv: Vec<usize>,
-    stats: FactorStats,
-    scratch: MemBuffer,
+/// Groups of the real unknowns (see [`hermitian_from_real`]): the real and imaginary part of
+/// element (r, c) form one group, named by the index r·d + c of the upper element.
+fn element_groups(d: usize) -> Vec<usize> {
+    (0..d * d)
+        .map(|u| {
+            let (r, c) = (u / d, u % d);
+            r.min(c) * d + r.max(c)
+        })
+        .collect()
 }
 
-impl SparseLu {
-    /// Factorise `a`; a structurally singular matrix is reported as [`SteadyError::Singular`]
-    /// with `singular_threshold` as the threshold.
-    fn factor(a: &SparseColMat<usize, C64>, singular_threshold: f64) -> Result<Self, SteadyError> {
-        let n = a.nrows();
-        let fail = |reason: String| SteadyError::Factorization { n, reason };
-        let nnz = a.compute_nnz();
-        let mut col_fwd = vec![0usize; n];
-        let mut col_inv = vec![0usize; n];
-        {
-            let req = colamd::order_scratch::<usize>(n, n, nnz);
-            let mut mem = MemBuffer::try_new(req).map_err(|e| fail(format!("{e:?}")))?;
-            colamd::order(
-                &mut col_fwd,
-                &mut col_inv,
-                a.symbolic(),
-                colamd::Control::default(),
-                MemStack::new(&mut mem),
-            )
-            .map_err(|e| fail(format!("{e:?}")))?;
-        }
-        let mut row_fwd = vec![0usize; n];
-        let mut row_inv = vec![0usize; n];
-        let mut lu = SimplicialLu::<usize, C64>::new();
-        {
-            let req = simplicial::factorize_simplicial_numeric_lu_scratch::<usize, C64>(n, n);
-            let mut mem = MemBuffer::try_new(req).map_err(|e| fail(format!("{e:?}")))?;
-            simplicial::factorize_simplicial_numeric_lu(
-                &mut row_fwd,
-                &mut row_inv,
-                &mut lu,
-                a.as_ref(),
-                PermRef::new_checked(&col_fwd, &col_inv, n),
-                MemStack::new(&mut mem),
-            )
-            .map_err(|e| match e {
-                // no non-zero left in a column: singular whatever the values
-                LuError::SymbolicSingular { .. } => SteadyError::Singular {
-                    min_pivot_ratio: 0.0,
-                    threshold: singular_threshold,
-                },
-                e => fail(format!("{e:?}")),
-            })?;
-        }
-        let l = lu.l_factor_unsorted();
-        let u = lu.u_factor_unsorted();
-        let (nnz_l, nnz_u) = (l.compute_nnz(), u.compute_nnz());
-        let (mut pmin, mut pmax) = (f64::INFINITY, 0.0f64);
-        for j in 0..n {
-            let rows = u.row_idx_of_col_raw(j);
-            let vals = u.val_of_col(j);
-            let p = rows
-                .iter()
-                .zip(vals)
-                .find(|(&r, _)| r == j)
-                .map_or(0.0, |(_, v)| v.norm());
-            pmin = pmin.min(p);
-            pmax = pmax.max(p);
-        }
-        let min_pivot_ratio = if n == 0 {
-            1.0
-        } else if pmax > 0.0 && pmin.is_finite() {
-            pmin / pmax
-        } else {
-            0.0
-        };
-        let idx = std::mem::size_of::<usize>();
-        let bytes =
-            (nnz_l + nnz_u) * (std::mem::size_of::<C64>() + idx) + 2 * (n + 1) * idx + 4 * n * idx;
-        let scratch = MemBuffer::try_new(simplicial::solve_in_place_scratch::<usize, C64>(
-            n,
-            1,
-            faer::Par::Seq,
-        ))
-        .map_err(|e| fail(format!("{e:?}")))?;
-        Ok(Self {
-            lu,
-            row_fwd,
-            row_inv,
-            col_fwd,
-            col_inv,
-            stats: FactorStats {
-                n,
-                nnz_matrix: nnz,
-                nnz_l,
-                nnz_u,
-                bytes,
-                min_pivot_ratio,
-            },
-            scratch,
-        })
-    }
+/// Backward error accepted from the multifrontal LU (restricted pivoting) before falling back to
+/// partial pivoting: ‖b − Ax‖∞ / (‖A‖∞‖x‖∞ + ‖b‖∞) for a pseudo-random b. A backward-stable
+/// solve gives a small multiple of ε; this allows a pivot growth of about 10⁴.
+const MULTIFRONTAL_BACKWARD_ERROR: f64 = 1e-12;
 
-    /// x ← A⁻¹ x.
-    fn solve(&mut self, x: &mut [C64]) {
-        let n = self.stats.n;
-        self.lu.solve_in_place_with_conj(
-            PermRef::new_checked(&self.row_fwd, &self.row_inv, n),
-            PermRef::new_checked(&self.col_fwd, &self.col_inv, n),
-            faer::Conj::No,
-            faer::MatMut::from_column_major_slice_mut(x, n, 1),
-            faer::Par::Seq,
-            MemStack::new(&mut self.scratch),
-        );
+/// ‖b − Ax‖∞ / (‖A‖∞‖x‖∞ + ‖b‖∞) and the residual r = b − Ax.
+fn backward_error(a: &SparseColMat<usize, f64>, x: &[f64], b: &[f64], r: &mut Vec<f64>) -> f64 {
+    r.clear();
+    r.extend_from_slice(b);
+    let mut row_abs = vec![0.0f64; b.len()];
+    for j in 0..a.ncols() {
+        let xj = x[j];
+        for (&i, &v) in a.row_idx_of_col_raw(j).iter().zip(a.val_of_col(j)) {
+            r[i] -= v * xj;
+            row_abs[i] += v.abs();
+        }
     }
+    let a_inf = row_abs.iter().copied().fold(0.0, f64::max);
+    let num = r.iter().map(|v| v.abs()).fold(0.0, f64::max);
+    let den = a_inf * x.iter().map(|v| v.abs()).fold(0.0, f64::max)
+        + b.iter().map(|v| v.abs()).fold(0.0, f64::max);
+    if den > 0.0 {
+        num / den
+    } else if num == 0.0 {
+        0.0
+    } else {
+        f64::INFINITY
+    }
+}
+
+/// Solve A x = b with the factors and up to `max_steps` steps of iterative refinement (in working
+/// precision, which restores a small backward error after a moderate pivot growth; Higham,
+/// Accuracy and Stability of Numerical Algorithms, 2nd ed., §12.2). Returns (backward error,
+/// steps taken).
+fn solve_refined(
+    lu: &mut RealLu,
+    a: &SparseColMat<usize, f64>,
+    b: &[f64],
+    x: &mut Vec<f64>,
+    max_steps: usize,
+) -> (f64, usize) {
+    x.clear();
+    x.extend_from_slice(b);
+    lu.solve(x);
+    let mut r = Vec::new();
+    let mut eta = backward_error(a, x, b, &mut r);
+    let mut steps = 0;
+    while steps < max_steps && eta > 4.0 * f64::EPSILON && eta.is_finite() {
+        let mut dx = r.clone();
+        lu.solve(&mut dx);
+        let trial: Vec<f64> = x.iter().zip(&dx).map(|(u, v)| u + v).collect();
+        let mut r2 = Vec::new();
+        let eta2 = backward_error(a, &trial, b, &mut r2);
+        steps += 1;
+        if !(eta2 < 0.5 * eta) {
+            break;
+        }
+        *x = trial;
+        r = r2;
+        eta = eta2;
+    }
+    (eta, steps)
+}
+
+/// Analyse, check the memory bound, factorise and estimate the condition number. With the
+/// multifrontal strategy the factors are probed (backward error of a pseudo-random solve,
+/// condition estimate); if they look inaccurate or singular, faer's partial-pivoting LU is used
+/// instead (a line is added to `notes`), and only its verdict makes a matrix singular.
+fn factor_real(
+    a: &SparseColMat<usize, f64>,
+    d: usize,
+    strategy: LuStrategy,
+    max_bytes: Option<u128>,
+    min_rcond: f64,
+    notes: &mut Vec<String>,
+) -> Result<(RealLu, FactorStats), SteadyError> {
+    let n = a.nrows();
+    let fail = |reason: String| SteadyError::Factorization { n, reason };
+    let groups = element_groups(d);
+    let start = std::time::Instant::now();
+    let sym = sparse_lu::analyse(a.as_ref(), strategy, &groups).map_err(fail)?;
+    let analyse_seconds = start.elapsed().as_secs_f64();
+    let needed = sym.bytes_bound();
+    let nnz_bound = sym.nnz_bound();
+    if let Some(allowed) = max_bytes {
+        if needed > allowed {
+            return Err(SteadyError::TooLarge {
+                n,
+                nnz_bound,
+                needed,
+                allowed,
+            });
+        }
+    }
+    let start = std::time::Instant::now();
+    let mut lu = sparse_lu::factor(sym, a.as_ref()).map_err(|e| match e {
+        // no non-zero left in a column: singular whatever the values
+        FactorFailure::StructurallySingular => SteadyError::Singular {
+            rcond: 0.0,
+            threshold: min_rcond,
+        },
+        FactorFailure::Other(reason) => fail(reason),
+    })?;
+    let factor_seconds = start.elapsed().as_secs_f64();
+    let rcond = lu.rcond();
+    if strategy == LuStrategy::Multifrontal {
+        let mut rng = SplitMix(0x0B5E_55ED_0000_0001);
+        let b: Vec<f64> = (0..n).map(|_| rng.next_f64()).collect();
+        let mut x = Vec::new();
+        let (eta, _) = solve_refined(&mut lu, a, &b, &mut x, 0);
+        if !(eta <= MULTIFRONTAL_BACKWARD_ERROR && rcond >= min_rcond) {
+            notes.push(format!(
+                "multifrontal LU (pivots restricted to supernode blocks, largest multiplier \
+                 {:.1e}) gave backward error {eta:.1e} and reciprocal condition estimate \
+                 {rcond:.1e}; refactorised with partial pivoting",
+                lu.max_multiplier()
+            ));
+            drop(lu);
+            return factor_real(
+                a,
+                d,
+                LuStrategy::PartialPivoting,
+                max_bytes,
+                min_rcond,
+                notes,
+            );
+        }
+    }
+    let stats = FactorStats {
+        n,
+        nnz_matrix: a.compute_nnz(),
+        nnz_l: nnz_bound,
+        nnz_u: nnz_bound,
+        bytes: usize::try_from(needed).unwrap_or(usize::MAX),
+        rcond,
+        strategy,
+        max_multiplier: lu.max_multiplier(),
+        refinement_steps: 0,
+        analyse_seconds,
+        factor_seconds,
+    };
+    Ok((lu, stats))
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -757,23 +918,35 @@ impl SparseLu {
 /// Why this row: the population equations sum to zero (𝓛 is trace preserving), so the (0, 0)
 /// equation is a combination of the others and dropping it loses nothing; the trace row is not
 /// in the row space of 𝓛 (it does not annihilate ρₛₛ), so the bordered matrix is non-singular
-/// exactly when the steady state is unique. The solution is made exactly Hermitian and
-/// normalised to trace 1 before the residual is computed.
+/// exactly when the steady state is unique.
+///
+/// The matrix factorised is real: 𝓛 acting on the real coordinates of Hermitian matrices (see
+/// [`liouvillian`] for the complex one; the real one has the same d² unknowns, the same
+/// eigenvalues and the same pattern folded onto the upper triangle, at a quarter of the
+/// arithmetic). The LU is chosen by [`DirectOptions::strategy`]: by default a multifrontal LU
+/// on the symmetrised pattern, whose accuracy is probed and which falls back to faer's
+/// partial-pivoting LU when needed (noted in `fallbacks`). Before the numeric factorisation the
+/// symbolic analysis predicts the factors' size (see [`FactorStats`]), and the solve is refused
+/// ([`SteadyError::TooLarge`]) if that exceeds [`DirectOptions::max_factor_bytes`]. After it, a
+/// Hager–Higham estimate of the reciprocal condition number decides whether the bordered matrix
+/// is singular, i.e. the steady state not unique ([`SteadyError::Singular`]). The solution gets
+/// up to 3 steps of iterative refinement, is made exactly Hermitian and normalised to trace 1
+/// before the residual is computed.
 ///
 /// # Errors
-/// [`SteadyError::Singular`] (non-unique steady state), [`SteadyError::Inaccurate`],
-/// [`SteadyError::Factorization`], [`SteadyError::Evolve`] for unsupported jump operators,
-/// [`SteadyError::Options`].
+/// [`SteadyError::Singular`] (non-unique steady state), [`SteadyError::TooLarge`],
+/// [`SteadyError::Inaccurate`], [`SteadyError::Factorization`], [`SteadyError::Evolve`] for
+/// unsupported jump operators, [`SteadyError::Options`].
 pub fn steady_state_direct(
     me: &MasterEquation,
     t_eval: f64,
     opts: &DirectOptions,
 ) -> Result<SteadySolution, SteadyError> {
     check_t_eval(t_eval)?;
-    if !(opts.min_pivot_ratio >= 0.0 && opts.max_relative_residual > 0.0) {
+    if !(opts.min_rcond >= 0.0 && opts.max_relative_residual > 0.0) {
         return Err(SteadyError::Options(format!(
-            "direct: min_pivot_ratio = {} must be ≥ 0 and max_relative_residual = {} > 0",
-            opts.min_pivot_ratio, opts.max_relative_residual
+            "direct: min_rcond = {} must be ≥ 0 and max_relative_residual = {} > 0",
+            opts.min_rcond, opts.max_relative_residual
         )));
     }
     let mf = frozen(me, t_eval);
@@ -785,22 +958,35 @@ pub fn steady_state_direct(
     } else {
         1.0
     };
-    let mut t = liouvillian_triplets(&mf);
+    let mut t = hermitian_triplets(&mf, 0.0);
+    // row 0 is the real part of the (0, 0) equation
     t.retain(|e| e.0 != 0);
-    t.extend((0..d).map(|r| (0, r * d + r, C64::new(w, 0.0))));
+    t.extend((0..d).map(|r| (0, r * d + r, w)));
     let a = assemble(n, t)?;
-    let mut lu = SparseLu::factor(&a, opts.min_pivot_ratio)?;
-    drop(a);
-    let stats = lu.stats;
-    if !(stats.min_pivot_ratio >= opts.min_pivot_ratio) {
+    let mut notes = Vec::new();
+    let (mut lu, mut stats) = factor_real(
+        &a,
+        d,
+        opts.strategy,
+        opts.max_factor_bytes,
+        opts.min_rcond,
+        &mut notes,
+    )?;
+    if !(stats.rcond >= opts.min_rcond) {
         return Err(SteadyError::Singular {
-            min_pivot_ratio: stats.min_pivot_ratio,
-            threshold: opts.min_pivot_ratio,
+            rcond: stats.rcond,
+            threshold: opts.min_rcond,
         });
     }
+    let mut b = vec![0.0; n];
+    b[0] = w;
+    let mut y = Vec::new();
+    let (_, steps) = solve_refined(&mut lu, &a, &b, &mut y, 3);
+    stats.refinement_steps = steps;
+    drop(lu);
+    drop(a);
     let mut x = vec![ZERO; n];
-    x[0] = C64::new(w, 0.0);
-    lu.solve(&mut x);
+    hermitian_from_real(d, &y, &mut x);
     hermitize_normalize(d, &mut x, SteadyMethod::Direct)?;
     let (residual, relative_residual) = checker.residual(&x);
     if !(relative_residual <= opts.max_relative_residual) {
@@ -819,7 +1005,7 @@ pub fn steady_state_direct(
         iterations: 1,
         time: None,
         factor: Some(stats),
-        fallbacks: Vec::new(),
+        fallbacks: notes,
     })
 }
 
@@ -1224,7 +1410,8 @@ pub fn steady_state_evolve(
 // ---------------------------------------------------------------------------------------------
 
 /// Steady state with automatic method choice: the direct solve when d² ≤ `direct_max_unknowns`;
-/// if it is skipped or fails for a reason other than a non-unique steady state, GMRES; if GMRES
+/// if it is skipped, refused by its memory guard or fails for a reason other than a non-unique
+/// steady state, GMRES; if GMRES
 /// does not converge, time evolution from I/d. The result's `fallbacks` lists what was skipped or
 /// failed and why.
 ///
@@ -1396,11 +1583,10 @@ fn block_arnoldi(
         next_check = k + block.max(k / 8);
         // Ritz values of the leading k×k block
         let hk = faer::Mat::<C64>::from_fn(k, k, |i, c| cols[c].get(i).copied().unwrap_or(ZERO));
-        let eig = hk
-            .eigen()
-            .map_err(|_| SteadyError::DenseEigen { size: k })?;
-        let s = eig.S().column_vector();
-        let u = eig.U();
+        // sequential on purpose: faer's default parallelism would reserve the parallel GEMM's
+        // large packing buffers for this small matrix (see PAR_MIN_ORDER)
+        let (s, u) = small_eigen(hk.as_ref()).map_err(|_| SteadyError::DenseEigen { size: k })?;
+        let s = s.as_ref();
         let rows = q.len();
         // rounding floor of the projected matrix: its entries are inner products formed with
         // errors of about ε‖A‖ (‖A‖ estimated by ‖H_k‖_F), k of them per column
@@ -1459,6 +1645,33 @@ fn block_arnoldi(
     }
 }
 
+/// Eigenvalues and right eigenvectors of a small dense complex matrix, on the calling thread.
+fn small_eigen(
+    a: faer::MatRef<'_, C64>,
+) -> Result<(faer::Col<C64>, faer::Mat<C64>), faer::linalg::evd::EvdError> {
+    use faer::dyn_stack::{MemBuffer, MemStack};
+    use faer::linalg::evd::{self, ComputeEigenvectors};
+    let n = a.nrows();
+    let mut u = faer::Mat::<C64>::zeros(n, n);
+    let mut s = faer::diag::Diag::<C64>::zeros(n);
+    evd::evd_cplx(
+        a,
+        s.as_mut(),
+        None,
+        Some(u.as_mut()),
+        faer::Par::Seq,
+        MemStack::new(&mut MemBuffer::new(evd::evd_scratch::<C64>(
+            n,
+            ComputeEigenvectors::No,
+            ComputeEigenvectors::Yes,
+            faer::Par::Seq,
+            Default::default(),
+        ))),
+        Default::default(),
+    )?;
+    Ok((s.column_vector().to_owned(), u))
+}
+
 /// Zeros first; then by real part descending, where real parts closer than `resolution` (in a
 /// chain of sorted neighbours) count as equal and are ordered by |Im λ|, then Im λ.
 fn sort_spectrum(
@@ -1489,10 +1702,12 @@ fn sort_spectrum(
 
 /// The eigenvalues of 𝓛 (at `t_eval`) nearest a small negative shift σ, by shift-and-invert
 /// block Arnoldi: the eigenvalues μ of (𝓛 − σI)⁻¹ of largest modulus are λ = σ + 1/μ with λ
-/// nearest σ, i.e. (for small |σ|) nearest zero. (𝓛 − σI) is factorised once by faer's sparse
-/// LU (supernodal when the fill is large; measured 1 s for d = 80, 30 s for d = 128); the Ritz
-/// values come from faer's dense complex eigensolver on the small projected matrix. Memory: the
-/// factors plus `max_basis` vectors of d² complex numbers.
+/// nearest σ, i.e. (for small |σ|) nearest zero. (𝓛 − σI), in its real form on Hermitian
+/// matrices (same eigenvalues), is factorised once by the sparse LU of
+/// [`RelaxationOptions::strategy`], with the memory guard [`RelaxationOptions::max_factor_bytes`]
+/// (costs as for [`steady_state_direct`]); a complex Krylov vector is solved as its real and
+/// imaginary parts. The Ritz values come from faer's dense complex eigensolver on the small
+/// projected matrix. Memory: the factors plus `max_basis` vectors of d² complex numbers.
 ///
 /// Reported: the eigenvalues, zeros first and then by real part descending; the dimension of the
 /// zero eigenspace (|λ| ≤ zero_tol·S, S = [`generator_scale`]) and `degenerate: Some(k)` when it
@@ -1538,18 +1753,33 @@ pub fn relaxation(
         None if scale > 0.0 => -1e-3 * scale,
         None => -1.0,
     };
-    let mut t = liouvillian_triplets(&mf);
-    t.extend((0..n).map(|i| (i, i, C64::new(-sigma, 0.0))));
-    let a = assemble(n, t)?;
+    // 𝓛 − σI is non-singular for σ < 0 (Re λ ≤ 0 for every eigenvalue of a Lindbladian); the
+    // real form on Hermitian matrices has the same eigenvalues, and a complex vector is solved
+    // as its real and imaginary parts (two right-hand sides)
+    let a = assemble(n, hermitian_triplets(&mf, -sigma))?;
     let matrix_nnz = a.compute_nnz();
-    // 𝓛 − σI is non-singular for σ < 0 (Re λ ≤ 0 for every eigenvalue of a Lindbladian), so no
-    // pivot check is needed and faer's automatic (supernodal for large fill) LU is used
-    let fail = |reason: String| SteadyError::Factorization { n, reason };
-    let symbolic = SymbolicLu::try_new(a.symbolic()).map_err(|e| fail(format!("{e:?}")))?;
-    let lu = Lu::try_new_with_symbolic(symbolic, a.as_ref()).map_err(|e| fail(format!("{e:?}")))?;
+    let (mut lu, _) = factor_real(
+        &a,
+        d,
+        opts.strategy,
+        opts.max_factor_bytes,
+        0.0,
+        &mut Vec::new(),
+    )?;
     drop(a);
-    let mut solve =
-        |x: &mut [C64]| lu.solve_in_place(faer::MatMut::from_column_major_slice_mut(x, n, 1));
+    let mut parts = vec![0.0f64; 2 * n];
+    let mut solve = |x: &mut [C64]| {
+        let (re, im) = parts.split_at_mut(n);
+        for ((r, i), v) in re.iter_mut().zip(im.iter_mut()).zip(x.iter()) {
+            *r = v.re;
+            *i = v.im;
+        }
+        lu.solve(&mut parts);
+        let (re, im) = parts.split_at(n);
+        for ((v, r), i) in x.iter_mut().zip(re).zip(im) {
+            *v = C64::new(*r, *i);
+        }
+    };
     let zero_abs = opts.zero_tol * scale.max(sigma.abs());
     let mut block = opts.block.min(n);
     let mut wanted = opts.count.min(n);

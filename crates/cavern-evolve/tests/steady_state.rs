@@ -19,6 +19,7 @@
 
 mod common;
 
+use cavern_evolve::steady::LuStrategy;
 use cavern_evolve::steady::{self, frozen};
 use cavern_evolve::{
     lindblad, DirectOptions, EvolutionOptions, GmresOptions, LindbladRhs, Par, RelaxationOptions,
@@ -583,6 +584,124 @@ fn driver_falls_back_in_order() {
         "{:?}",
         s.fallbacks
     );
+}
+
+/// Both sparse LUs (the multifrontal one with pivots restricted to supernode blocks, and faer's
+/// partial-pivoting one) solve the real form of 𝓛 on Hermitian matrices; each solution must lie
+/// within the rigorous a-posteriori bound of the dense reference built from the definition
+/// (‖ρ − ρₛₛ‖_F ≤ ‖Aρ − b‖/σ_min(A); see the file header, Higham §3.1 and §9, from memory), and
+/// that bound must be as small as a backward-stable solve promises. Model: the driven JC model
+/// (d = 12) and two driven sites in a 4-level mode (d = 16, zz coupling, every dissipator).
+#[test]
+fn lu_strategies_agree_with_the_dense_reference() {
+    let two_sites = Network {
+        sites: vec![
+            SiteParams {
+                detuning: 0.2,
+                decay: 0.3,
+                dephasing: 0.1,
+                rabi: 0.5,
+                ..Default::default()
+            },
+            SiteParams {
+                detuning: -0.4,
+                decay: 0.1,
+                pump: 0.05,
+                ..Default::default()
+            },
+        ],
+        modes: vec![ModeParams {
+            levels: 4,
+            detuning: 0.3,
+            loss: 0.8,
+            drive: 0.4,
+            ..Default::default()
+        }],
+        coupling: vec![vec![0.6], vec![0.45]],
+        zz: vec![vec![0.0, 0.1], vec![0.1, 0.0]],
+        ..Network::empty()
+    }
+    .build()
+    .unwrap();
+    for (me, label) in [(driven_jc(), "driven JC"), (two_sites, "two sites")] {
+        let dense = Dense::new(&me, 0.0);
+        let mut rhos = Vec::new();
+        for strategy in [LuStrategy::Multifrontal, LuStrategy::PartialPivoting] {
+            let opts = DirectOptions {
+                strategy,
+                ..Default::default()
+            };
+            let s = steady::steady_state_direct(&me, 0.0, &opts).unwrap();
+            let f = s.factor.unwrap();
+            let bound = dense.bound(&s.rho);
+            eprintln!(
+                "{label}, {strategy:?}: bound {bound:.1e} (promise {:.1e}), rcond {:.1e}, \
+                 largest multiplier {:.1e}, refinement {}, nnz L {} U {}, {} B predicted",
+                dense.direct_promise(),
+                f.rcond,
+                f.max_multiplier,
+                f.refinement_steps,
+                f.nnz_l,
+                f.nnz_u,
+                f.bytes
+            );
+            assert_eq!(f.strategy, strategy, "{label}: no fallback expected");
+            assert!(bound <= dense.direct_promise(), "{label} {strategy:?}");
+            // the condition estimate is within a factor n of the 2-norm one (norm equivalence)
+            // and may only overestimate rcond (it underestimates ‖A⁻¹‖₁)
+            assert!(f.rcond > 0.0 && f.rcond.is_finite());
+            rhos.push((s.rho, bound));
+        }
+        let diff = max_diff(&rhos[0].0, &rhos[1].0);
+        assert!(diff <= rhos[0].1 + rhos[1].1, "{label}: {diff:e}");
+    }
+}
+
+/// The memory guard acts before any numeric work: a limit below the predicted size of the
+/// factors refuses the direct solve with the prediction, and the driver then falls back to
+/// GMRES, saying why (common practice: check the symbolic analysis's size before the numeric
+/// factorisation). Relaxation refuses the same way.
+#[test]
+fn memory_guard_refuses_before_factorising() {
+    let me = driven_jc();
+    let tight = DirectOptions {
+        max_factor_bytes: Some(1000),
+        ..Default::default()
+    };
+    match steady::steady_state_direct(&me, 0.0, &tight) {
+        Err(SteadyError::TooLarge {
+            n, needed, allowed, ..
+        }) => {
+            assert_eq!(n, 144);
+            assert_eq!(allowed, 1000);
+            assert!(needed > 1000);
+        }
+        other => panic!("expected TooLarge, got {other:?}"),
+    }
+    let free = steady::steady_state_direct(&me, 0.0, &DirectOptions::default()).unwrap();
+    let limit = free.factor.unwrap().bytes as u128;
+    let exact = DirectOptions {
+        max_factor_bytes: Some(limit),
+        ..Default::default()
+    };
+    assert!(steady::steady_state_direct(&me, 0.0, &exact).is_ok());
+    let opts = SteadyOptions {
+        direct: tight,
+        gmres: seq_gmres(),
+        evolution: seq_evolution(),
+        ..Default::default()
+    };
+    let s = steady::steady_state(&me, 0.0, &opts).unwrap();
+    assert_eq!(s.method, SteadyMethod::Gmres);
+    assert!(s.fallbacks[0].contains("refused"), "{:?}", s.fallbacks);
+    let ropts = RelaxationOptions {
+        max_factor_bytes: Some(1000),
+        ..Default::default()
+    };
+    assert!(matches!(
+        steady::relaxation(&me, 0.0, &ropts),
+        Err(SteadyError::TooLarge { .. })
+    ));
 }
 
 /// Failures are errors that carry the numbers reached, never silent answers.
