@@ -412,9 +412,9 @@ fn memory_text(plan: &RunPlan, mem: &MemoryPlan) -> String {
                 .collect();
             let _ = writeln!(
                 s,
-                "  the modes are ELIMINATED: the run uses the spin-only effective model, with the effective Jᶻ as the zz couplings above and one collective dephasing jump √κ Σᵢ gξᵢ^μσᶻᵢ/|Δ − iκ/2| per pattern ({}); corrections of relative order N(g/|Δ − iκ/2|)² = {}",
+                "  the modes are ELIMINATED: the run uses the spin-only effective model, with the effective Jᶻ as the zz couplings above and one collective dephasing jump √κ Σᵢ gξᵢ^μσᶻᵢ/|Δ − iκ/2| per pattern ({}); corrections of relative order (N g/|Δ − iκ/2|)² = {} (the mode displacement at a retrieved pattern, squared)",
                 labels.join(", "),
-                sig(n as f64 * coupling * coupling / (d * d + 0.25 * k * k))
+                sig((n * n) as f64 * coupling * coupling / (d * d + 0.25 * k * k))
             );
         } else {
             let jz = cavern_model::memory::zz_from_couplings(&mem.couplings, mem.scale);

@@ -558,9 +558,10 @@ print("recall" in f, f["memory"].attrs["rule"], f["memory/patterns"].shape,
 fn eliminated_memory_modes_agree_with_the_full_model_only_far_detuned() {
     // [memory.modes] eliminate = true runs the spin-only effective model (effective-operator
     // formalism, Reiter & Sørensen, Phys. Rev. A 85, 032111 (2012)): mediated zz plus one
-    // collective dephasing per mode. Its corrections are of relative order N(g/|Δ − iκ/2|)²:
-    // 3·0.16/404 = 1.2e-3 for g = 0.4, Δ = 20, κ = 4 (measured max |Δ⟨σᶻ⟩| 2.4e-3; bound 5e-3),
-    // but 3·4/20 = 0.6 for g = 2, Δ = 4, where the two must visibly disagree (measured 0.22).
+    // collective dephasing per mode. Its corrections are of relative order (N g/|Δ − iκ/2|)², the
+    // squared mode displacement: 9·0.16/404 = 3.6e-3 for g = 0.4, Δ = 20, κ = 4 (measured max
+    // |Δ⟨σᶻ⟩| 2.4e-3; bound 5e-3), but 9·4/20 = 1.8 for g = 2, Δ = 4, where the two must visibly
+    // disagree (measured 0.22).
     let sb = Sandbox::new();
     let spin_z = |eliminate: bool, g: f64, detuning: f64| -> Vec<f64> {
         let cfg = sb.write(
