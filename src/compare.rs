@@ -492,26 +492,23 @@ fn select_point(root: &Group, file: &Path, spec: &str) -> Result<(usize, String)
         )));
     }
     let mut index = vec![0usize; axes.len()];
+    let names = axes
+        .iter()
+        .map(|a| a.name.as_str())
+        .collect::<Vec<_>>()
+        .join(", ");
     for part in spec.split(',') {
         let (name, value) = part.split_once('=').ok_or_else(|| {
             AppError::Input(format!(
-                "{}: scan point `{part}`: write axis=value (axes: {})",
-                file.display(),
-                axes.iter()
-                    .map(|a| a.name.as_str())
-                    .collect::<Vec<_>>()
-                    .join(", ")
+                "{}: scan point `{part}`: write axis=value (axes: {names})",
+                file.display()
             ))
         })?;
         let (name, value) = (name.trim(), value.trim());
         let k = axes.iter().position(|a| a.name == name).ok_or_else(|| {
             AppError::Input(format!(
-                "{}: unknown scan axis `{name}`; axes: {}",
-                file.display(),
-                axes.iter()
-                    .map(|a| a.name.as_str())
-                    .collect::<Vec<_>>()
-                    .join(", ")
+                "{}: unknown scan axis `{name}`; axes: {names}",
+                file.display()
             ))
         })?;
         let v: f64 = value.parse().map_err(|_| {
