@@ -18,12 +18,14 @@ B. a SciPy worker (a subprocess of this script, so that its peak memory and a ti
 
 When both finish, ⟨σᶻᵢ⟩ and ⟨a†a⟩ of the two steady states are compared (independent builds of
 the model, so this is also a correctness check). A SciPy run that exceeds --scipy-timeout seconds
-is stopped and reported as such.
+is stopped and reported as such; one that outgrows --scipy-memory GiB (address-space cap, default
+16) reports its MemoryError.
 
 Usage:
   python3 benches/steady_vs_scipy.py --levels 5 --repeat 2            # d = 80, both, A/B/A/B
   python3 benches/steady_vs_scipy.py --levels 16 --repeat 1 --scipy-timeout 900   # d = 256
-  python3 benches/steady_vs_scipy.py --sites 6 --levels 16 --method iterative --tolerance 1e-8 --no-scipy  # d = 1024
+  python3 benches/steady_vs_scipy.py --sites 6 --levels 16 --method iterative --tolerance 1e-8 \
+      --repeat 1 --scipy-timeout 1200                                   # d = 1024, GMRES vs splu
 Options: --config (default benches/steady256.toml; --sites/--levels override its size),
 --cavern PATH (default target/release/cavern, built unless --no-build).
 Writes target/perf/steady_vs_scipy-d{d}.json.
@@ -80,24 +82,28 @@ def sized_config(base, sites, levels, method, tolerance=None):
     return text
 
 
-def scipy_worker(config, spec):
+def scipy_worker(config, spec, limit_gib):
     """Runs in a subprocess: build, factorise, solve; prints one JSON line."""
     import resource
 
     import scipy.sparse as sp
     import scipy.sparse.linalg as sla
 
+    if limit_gib > 0:
+        # address-space cap: a factorisation that outgrows it fails with MemoryError (reported)
+        # instead of pushing the machine into the OOM killer
+        lim = int(limit_gib * 2**30)
+        resource.setrlimit(resource.RLIMIT_AS, (lim, lim))
     cfg = tomllib.loads(Path(config).read_text())
     m = model_from_config(cfg)
     t0 = time.perf_counter()
     d, h, jumps = operators(m)
     lv = liouvillian(d, h, jumps).tocsr()
     # replace the equation of ρ₀₀ (row 0 in either stacking) by the trace condition
-    lv = lv.tolil()
-    lv[0, :] = 0
-    for r in range(d):
-        lv[0, r * d + r] = 1.0
-    a = sp.csc_matrix(lv)
+    keep = np.ones(d * d)
+    keep[0] = 0.0
+    trace_row = sp.csr_matrix((np.ones(d), (np.zeros(d, dtype=int), np.arange(d) * (d + 1))), shape=(d * d, d * d))
+    a = sp.csc_matrix(sp.diags(keep) @ lv + trace_row)
     build = time.perf_counter() - t0
     kw = {}
     perm = spec
@@ -105,7 +111,13 @@ def scipy_worker(config, spec):
         perm = spec[:-4]
         kw = {"diag_pivot_thresh": 0.01, "options": {"SymmetricMode": True}}
     t0 = time.perf_counter()
-    lu = sla.splu(a, permc_spec=perm, **kw)
+    try:
+        lu = sla.splu(a, permc_spec=perm, **kw)
+    except (MemoryError, RuntimeError) as e:
+        print(json.dumps({"d": d, "nnz": int(a.nnz), "build_seconds": build,
+                          "error": f"{type(e).__name__}: {e}", "failed_after_seconds": time.perf_counter() - t0,
+                          "peak_rss_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024}))
+        return
     factor = time.perf_counter() - t0
     b = np.zeros(d * d, dtype=complex)
     b[0] = 1.0
@@ -172,6 +184,8 @@ def run_cavern(binary, config_text, out_dir, threads):
         for k in ("factor_nnz_l", "factor_nnz_u", "factor_bytes"):
             if k in a:
                 res[k] = int(a[k])
+        if "preconditioner" in a:
+            res["preconditioner"] = str(a["preconditioner"])
         if "fallbacks" in a:
             res["fallbacks"] = [str(x) for x in a["fallbacks"]]
     return res
@@ -189,13 +203,15 @@ def main():
     ap.add_argument("--threads", type=int, default=2)
     ap.add_argument("--scipy-spec", default="MMD_AT_PLUS_A+sym")
     ap.add_argument("--scipy-timeout", type=float, default=1800.0)
+    ap.add_argument("--scipy-memory", type=float, default=16.0,
+                    help="address-space cap of the SciPy process in GiB (0 = none)")
     ap.add_argument("--no-scipy", action="store_true")
     ap.add_argument("--no-build", action="store_true")
     ap.add_argument("--cavern", default=str(ROOT / "target" / "release" / "cavern"))
-    ap.add_argument("--scipy-worker", nargs=2, metavar=("CONFIG", "SPEC"), help=argparse.SUPPRESS)
+    ap.add_argument("--scipy-worker", nargs=3, metavar=("CONFIG", "SPEC", "GIB"), help=argparse.SUPPRESS)
     args = ap.parse_args()
     if args.scipy_worker:
-        scipy_worker(*args.scipy_worker)
+        scipy_worker(args.scipy_worker[0], args.scipy_worker[1], float(args.scipy_worker[2]))
         return
     if not args.no_build:
         subprocess.run(["cargo", "build", "--release", "--quiet"], cwd=ROOT, check=True)
@@ -213,11 +229,11 @@ def main():
             print(f"[{rep}] cavern {r['method']}: solve {r['solve_seconds']:.2f} s (process {r['process_seconds']:.2f} s), "
                   f"peak RSS {r['peak_rss_bytes'] / 2**20:.0f} MiB, predicted {r.get('factor_bytes', 0) / 2**20:.0f} MiB, "
                   f"nnz L {r.get('factor_nnz_l')}, U {r.get('factor_nnz_u')}, rel. residual {r['relative_residual']:.1e}, "
-                  f"iterations {r['iterations']}", flush=True)
+                  f"iterations {r['iterations']}, preconditioner {r.get('preconditioner', '-')}", flush=True)
             if args.no_scipy:
                 continue
-            p, rss, wall = timed([sys.executable, __file__, "--scipy-worker", str(cfg_path), args.scipy_spec],
-                                 args.scipy_timeout)
+            p, rss, wall = timed([sys.executable, __file__, "--scipy-worker", str(cfg_path), args.scipy_spec,
+                                  str(args.scipy_memory)], args.scipy_timeout)
             if p is None:
                 runs["scipy"].append({"timeout": args.scipy_timeout})
                 print(f"[{rep}] scipy splu ({args.scipy_spec}): stopped after {wall:.0f} s without finishing", flush=True)
@@ -225,6 +241,10 @@ def main():
             s = json.loads(p.stdout.strip().splitlines()[-1])
             s["process_peak_rss_bytes"] = rss
             runs["scipy"].append(s)
+            if "error" in s:
+                print(f"[{rep}] scipy splu ({args.scipy_spec}): failed after {s['failed_after_seconds']:.0f} s "
+                      f"(cap {args.scipy_memory} GiB): {s['error']}; peak RSS {rss / 2**20:.0f} MiB", flush=True)
+                continue
             print(f"[{rep}] scipy splu ({args.scipy_spec}): factor {s['factor_seconds']:.2f} s, solve "
                   f"{s['solve_seconds']:.2f} s, nnz L+U {s['nnz_l'] + s['nnz_u']} "
                   f"({s['factor_bytes'] / 2**20:.0f} MiB), peak RSS {rss / 2**20:.0f} MiB", flush=True)

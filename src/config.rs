@@ -99,6 +99,7 @@ struct RawSteady {
     max_time: Option<f64>,
     relaxation_rates: Option<i64>,
     at_time: Option<f64>,
+    preconditioner: Option<String>,
 }
 
 #[derive(Deserialize)]
@@ -389,7 +390,7 @@ pub enum SteadyRequest {
     Auto,
     /// Sparse LU of the Liouvillian with the trace condition.
     Direct,
-    /// Restarted GMRES, matrix-free, Jacobi preconditioned.
+    /// Restarted GMRES, matrix-free, preconditioned ([`SteadyPlan::preconditioner`]).
     Iterative,
     /// Time evolution until dρ/dt is negligible.
     Evolve,
@@ -423,6 +424,8 @@ pub struct SteadyPlan {
     pub relaxation_rates: usize,
     /// Time at which envelopes are frozen for the steady state (time unit).
     pub at_time: f64,
+    /// GMRES preconditioner: `"no-jump"` (default) or `"diagonal"`.
+    pub preconditioner: cavern_evolve::steady::GmresPreconditioner,
 }
 
 /// Read and resolve a config file.
@@ -917,6 +920,21 @@ impl Resolver {
                 );
             }
         }
+        use cavern_evolve::steady::GmresPreconditioner as Gp;
+        let preconditioner = match st.preconditioner.as_deref().unwrap_or("no-jump") {
+            "no-jump" => Gp::NoJump,
+            "diagonal" => Gp::Diagonal,
+            other => {
+                let hint = nearest(other, &["no-jump", "diagonal"])
+                    .map(|s| format!(" (did you mean \"{s}\"?)"))
+                    .unwrap_or_default();
+                self.err(
+                    "steady_state.preconditioner",
+                    format!("unknown GMRES preconditioner `{other}`{hint}; allowed: \"no-jump\", \"diagonal\""),
+                );
+                Gp::NoJump
+            }
+        };
         let max_iterations = st.max_iterations.unwrap_or(5000);
         if !(1..=100_000_000).contains(&max_iterations) {
             self.err(
@@ -955,6 +973,7 @@ impl Resolver {
                 1e6
             },
             relaxation_rates: rates.clamp(0, 100) as usize,
+            preconditioner,
             at_time: if at_time >= 0.0 && at_time.is_finite() {
                 at_time
             } else {

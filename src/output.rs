@@ -207,6 +207,9 @@ fn write_steady_groups(root: &mut Group, plan: &RunPlan, st: &crate::run::Steady
         if let Some(t) = state.time {
             g.attr("time_reached", t);
         }
+        if let Some(p) = state.preconditioner {
+            g.attr("preconditioner", p.name());
+        }
         if let Some(f) = &state.factor {
             g.attr("factor_nnz_l", f.nnz_l as i64)
                 .attr("factor_nnz_u", f.nnz_u as i64)

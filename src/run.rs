@@ -834,6 +834,7 @@ fn solve_steady(
     let start = Instant::now();
     let mut opts = SteadyOptions::default();
     opts.gmres.max_iterations = sp.max_iterations;
+    opts.gmres.preconditioner = sp.preconditioner;
     if let Some(t) = sp.tolerance {
         opts.gmres.tol = t;
         opts.evolution.tol = t;

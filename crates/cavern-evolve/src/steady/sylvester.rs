@@ -1,0 +1,181 @@
+//! GMRES preconditioner: the inverse of the no-jump part of the Liouvillian.
+//!
+//! 𝓛ρ = Kρ + ρK† + Σₖ LₖρLₖ† with K = −iH − ½ Σₖ Lₖ†Lₖ. The preconditioner drops the jump
+//! ("recycling") terms and inverts the rest, 𝓟ρ = Kρ + ρK†, a Sylvester (Lyapunov-type) equation
+//! that keeps all of the coherent dynamics, including every coupling and drive. With the
+//! eigen-decomposition K = V Λ V⁻¹ (dense, once), 𝓟 is diagonal in the basis V ⊗ V̄:
+//!
+//! ```text
+//! 𝓟⁻¹Y = V [(V⁻¹ Y V⁻†) ⊘ D] V†,   D_ij = λᵢ + conj(λⱼ)
+//! ```
+//!
+//! (the elimination of a Sylvester equation through a decomposition of its coefficient matrix:
+//! R. H. Bartels & G. W. Stewart, Commun. ACM 15, 820 (1972), who use the Schur form; the
+//! eigenbasis is used here because faer exposes the eigen-decomposition but not the complex Schur
+//! form). Re λ ≤ 0 since −½ΣL†L is negative semi-definite; a state that no jump empties and that
+//! H does not couple to others (e.g. the ground state of an undriven, decaying network) has
+//! Re λ = 0 and makes 𝓟 singular, so Re D is clamped to at most −δ (δ > 0 given by the caller).
+//! Clamping keeps D_ji = conj(D_ij), hence 𝓟⁻¹ maps Hermitian matrices to Hermitian matrices (the
+//! result is re-symmetrised against rounding). Exactness is not needed: GMRES uses 𝓟⁻¹ as a fixed
+//! linear map and checks the true residual.
+//!
+//! Cost: an O(d³) eigen-decomposition once, then four d×d complex matrix products per
+//! application, split into fixed column blocks over the rayon pool (the same blocks for any
+//! thread count, so results do not depend on it). Memory: five d×d complex matrices.
+
+use super::{Par, C64};
+use faer::linalg::matmul::matmul;
+use faer::traits::Conjugate;
+use faer::{Accum, Mat, MatMut, MatRef};
+use rayon::prelude::*;
+
+/// Columns per block of the parallel matrix products.
+const BLOCK: usize = 64;
+
+/// 𝓟⁻¹ for [`super::steady_state_gmres`].
+pub(super) struct Sylvester {
+    d: usize,
+    par: Par,
+    /// Right eigenvectors of K (columns).
+    v: Mat<C64>,
+    /// V⁻¹.
+    vinv: Mat<C64>,
+    /// 1 / D, row-major.
+    inv_den: Vec<C64>,
+    work_a: Mat<C64>,
+    work_b: Mat<C64>,
+    /// Row-major d×d buffer.
+    buf: Vec<C64>,
+}
+
+/// Why the preconditioner could not be built.
+#[derive(Debug)]
+pub(super) struct SetupFailure(pub String);
+
+/// dst = a · b, with the columns of dst in fixed blocks of [`BLOCK`] spread over the pool.
+fn product<B>(par: Par, dst: MatMut<'_, C64>, a: MatRef<'_, C64>, b: MatRef<'_, B>)
+where
+    B: Conjugate<Canonical = C64>,
+{
+    let one = C64::new(1.0, 0.0);
+    let n = dst.ncols();
+    if par == Par::Seq || n <= BLOCK {
+        matmul(dst, Accum::Replace, a, b, one, faer::Par::Seq);
+        return;
+    }
+    let mut blocks = Vec::with_capacity(n.div_ceil(BLOCK));
+    let mut rest = dst;
+    let mut start = 0;
+    while start < n {
+        let w = BLOCK.min(n - start);
+        let (left, right) = rest.split_at_col_mut(w);
+        blocks.push((start, w, left));
+        rest = right;
+        start += w;
+    }
+    blocks.into_par_iter().for_each(|(start, w, block)| {
+        matmul(
+            block,
+            Accum::Replace,
+            a,
+            b.subcols(start, w),
+            one,
+            faer::Par::Seq,
+        );
+    });
+}
+
+impl Sylvester {
+    /// Builds 𝓟⁻¹ for K (row-major d×d); `delta` > 0 is the clamp on Re D.
+    pub(super) fn new(d: usize, k: &[C64], delta: f64, par: Par) -> Result<Self, SetupFailure> {
+        assert_eq!(k.len(), d * d);
+        let km = MatRef::from_row_major_slice(k, d, d);
+        let (lambda, v) = super::dense_eigen(km)
+            .map_err(|e| SetupFailure(format!("eigen-decomposition of K failed: {e:?}")))?;
+        if lambda.iter().any(|l| !l.is_finite())
+            || v.col_iter().any(|c| c.iter().any(|x| !x.is_finite()))
+        {
+            return Err(SetupFailure(
+                "eigen-decomposition of K is not finite".into(),
+            ));
+        }
+        let vinv = {
+            use faer::linalg::solvers::DenseSolveCore;
+            v.partial_piv_lu().inverse()
+        };
+        // check V⁻¹V = I: a defective (or nearly defective) K gives a useless basis
+        let mut check = Mat::<C64>::zeros(d, d);
+        product(par, check.as_mut(), vinv.as_ref(), v.as_ref());
+        let mut defect = 0.0f64;
+        for c in 0..d {
+            for r in 0..d {
+                let e = if r == c {
+                    check[(r, c)] - 1.0
+                } else {
+                    check[(r, c)]
+                };
+                defect = defect.max(e.norm());
+            }
+        }
+        if !(defect <= 1e-6) {
+            return Err(SetupFailure(format!(
+                "the eigenvectors of K are numerically dependent (|V⁻¹V − I| = {defect:.1e})"
+            )));
+        }
+        let mut inv_den = vec![C64::new(0.0, 0.0); d * d];
+        for i in 0..d {
+            for j in 0..d {
+                let den = lambda[i] + lambda[j].conj();
+                inv_den[i * d + j] = C64::new(den.re.min(-delta), den.im).inv();
+            }
+        }
+        Ok(Self {
+            d,
+            par,
+            v,
+            vinv,
+            inv_den,
+            work_a: check,
+            work_b: Mat::zeros(d, d),
+            buf: vec![C64::new(0.0, 0.0); d * d],
+        })
+    }
+
+    /// out = 𝓟⁻¹ x, both in the kernel's panel layout (Hermitian in, Hermitian out).
+    pub(super) fn apply(&mut self, x: &[C64], out: &mut [C64]) {
+        let d = self.d;
+        crate::lindblad::from_panels(d, x, &mut self.buf);
+        let y = MatRef::from_row_major_slice(&self.buf, d, d);
+        product(self.par, self.work_a.as_mut(), self.vinv.as_ref(), y);
+        product(
+            self.par,
+            self.work_b.as_mut(),
+            self.work_a.as_ref(),
+            self.vinv.adjoint(),
+        );
+        for j in 0..d {
+            let col = self.work_b.col_mut(j);
+            for (i, w) in col.iter_mut().enumerate() {
+                *w *= self.inv_den[i * d + j];
+            }
+        }
+        product(
+            self.par,
+            self.work_a.as_mut(),
+            self.v.as_ref(),
+            self.work_b.as_ref(),
+        );
+        let z = MatMut::from_row_major_slice_mut(&mut self.buf, d, d);
+        product(self.par, z, self.work_a.as_ref(), self.v.adjoint());
+        // re-symmetrise against rounding: the Krylov space is the Hermitian matrices
+        let b = &mut self.buf;
+        for r in 0..d {
+            for c in r..d {
+                let a = (b[r * d + c] + b[c * d + r].conj()) * 0.5;
+                b[r * d + c] = a;
+                b[c * d + r] = a.conj();
+            }
+        }
+        crate::lindblad::to_panels(d, &self.buf, out);
+    }
+}
