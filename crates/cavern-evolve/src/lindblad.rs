@@ -479,28 +479,33 @@ impl LindbladRhs {
                 }
             }
             let act = &active[..n_act];
-            for (ci, xc) in xr.chunks_mut(CHUNK).enumerate() {
-                let col = ci * CHUNK;
-                let mut acc = [C64::new(0.0, 0.0); CHUNK];
-                acc[..xc.len()].copy_from_slice(xc);
-                if xc.len() == CHUNK {
+            if !act.is_empty() {
+                let mut chunks = xr.chunks_exact_mut(CHUNK);
+                for (ci, xc) in chunks.by_ref().enumerate() {
+                    let col = ci * CHUNK;
+                    // fixed-size copies: registers, no memmove call
+                    let xc: &mut [C64; CHUNK] = xc.try_into().expect("exact chunk");
+                    let mut acc = *xc;
                     for &(base, h) in act {
-                        let src = &rp[base + col..base + col + CHUNK];
+                        let src: &[C64; CHUNK] = rp[base + col..base + col + CHUNK]
+                            .try_into()
+                            .expect("exact chunk");
                         for (a, s) in acc.iter_mut().zip(src) {
                             a.re += h * s.im;
                             a.im -= h * s.re;
                         }
                     }
-                } else {
-                    for &(base, h) in act {
-                        let src = &rp[base + col..base + col + xc.len()];
-                        for (a, s) in acc.iter_mut().zip(src) {
-                            a.re += h * s.im;
-                            a.im -= h * s.re;
-                        }
+                    *xc = acc;
+                }
+                let rest = chunks.into_remainder();
+                let col = w - rest.len();
+                for &(base, h) in act {
+                    let src = &rp[base + col..base + w];
+                    for (a, s) in rest.iter_mut().zip(src) {
+                        a.re += h * s.im;
+                        a.im -= h * s.re;
                     }
                 }
-                xc.copy_from_slice(&acc[..xc.len()]);
             }
             // off-diagonal jumps: (LρL†)ᵣc = v_r v_c ρ[r + s_r, c + s_c] along column segments
             for j in &self.shift_jumps {

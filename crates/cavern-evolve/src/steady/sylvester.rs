@@ -20,11 +20,12 @@
 //! linear map and checks the true residual.
 //!
 //! Cost: an O(d³) eigen-decomposition once, then four d×d complex matrix products per
-//! application, split into fixed column blocks over the rayon pool (the same blocks for any
+//! application (two of them Hermitian, formed as lower triangles: 3 d³ complex multiply-adds), split into fixed column blocks over the rayon pool (the same blocks for any
 //! thread count, so results do not depend on it). Memory: five d×d complex matrices.
 
 use super::{Par, C64};
 use faer::linalg::matmul::matmul;
+use faer::reborrow::ReborrowMut;
 use faer::traits::Conjugate;
 use faer::{Accum, Mat, MatMut, MatRef};
 use rayon::prelude::*;
@@ -52,17 +53,16 @@ pub(super) struct Sylvester {
 #[derive(Debug)]
 pub(super) struct SetupFailure(pub String);
 
-/// dst = a · b, with the columns of dst in fixed blocks of [`BLOCK`] spread over the pool.
-fn product<B>(par: Par, dst: MatMut<'_, C64>, a: MatRef<'_, C64>, b: MatRef<'_, B>)
+/// dst = a · b, with the columns of dst in fixed blocks of [`BLOCK`] (the same blocks whether
+/// they run in turn or spread over the pool, so the result does not depend on the threads).
+/// `lower`: only rows j0… of each block starting at column j0 are formed, i.e. the lower
+/// triangle (and the upper part of the diagonal blocks) — enough when the product is Hermitian.
+fn product<B>(par: Par, lower: bool, dst: MatMut<'_, C64>, a: MatRef<'_, C64>, b: MatRef<'_, B>)
 where
-    B: Conjugate<Canonical = C64>,
+    B: Conjugate<Canonical = C64> + Sync,
 {
     let one = C64::new(1.0, 0.0);
     let n = dst.ncols();
-    if par == Par::Seq || n <= BLOCK {
-        matmul(dst, Accum::Replace, a, b, one, faer::Par::Seq);
-        return;
-    }
     let mut blocks = Vec::with_capacity(n.div_ceil(BLOCK));
     let mut rest = dst;
     let mut start = 0;
@@ -73,16 +73,33 @@ where
         rest = right;
         start += w;
     }
-    blocks.into_par_iter().for_each(|(start, w, block)| {
+    let run = |(start, w, block): (usize, usize, MatMut<'_, C64>)| {
+        let r0 = if lower { start } else { 0 };
+        let rows = block.nrows() - r0;
         matmul(
-            block,
+            block.subrows_mut(r0, rows),
             Accum::Replace,
-            a,
+            a.subrows(r0, rows),
             b.subcols(start, w),
             one,
             faer::Par::Seq,
         );
-    });
+    };
+    if par == Par::Seq {
+        blocks.into_iter().for_each(run);
+    } else {
+        blocks.into_par_iter().for_each(run);
+    }
+}
+
+/// Fill the strict upper triangle of a Hermitian matrix from its lower triangle.
+fn mirror_lower(m: &mut MatMut<'_, C64>) {
+    let d = m.nrows();
+    for c in 1..d {
+        for r in 0..c {
+            m[(r, c)] = m[(c, r)].conj();
+        }
+    }
 }
 
 impl Sylvester {
@@ -105,7 +122,7 @@ impl Sylvester {
         };
         // check V⁻¹V = I: a defective (or nearly defective) K gives a useless basis
         let mut check = Mat::<C64>::zeros(d, d);
-        product(par, check.as_mut(), vinv.as_ref(), v.as_ref());
+        product(par, false, check.as_mut(), vinv.as_ref(), v.as_ref());
         let mut defect = 0.0f64;
         for c in 0..d {
             for r in 0..d {
@@ -141,41 +158,48 @@ impl Sylvester {
         })
     }
 
-    /// out = 𝓟⁻¹ x, both in the kernel's panel layout (Hermitian in, Hermitian out).
+    /// out = 𝓟⁻¹ x, both in the kernel's panel layout (Hermitian in, Hermitian out). The two
+    /// products with Hermitian results (V⁻¹YV⁻† and VWV†) form only their lower triangles.
     pub(super) fn apply(&mut self, x: &[C64], out: &mut [C64]) {
         let d = self.d;
         crate::lindblad::from_panels(d, x, &mut self.buf);
         let y = MatRef::from_row_major_slice(&self.buf, d, d);
-        product(self.par, self.work_a.as_mut(), self.vinv.as_ref(), y);
+        product(self.par, false, self.work_a.as_mut(), self.vinv.as_ref(), y);
         product(
             self.par,
+            true,
             self.work_b.as_mut(),
             self.work_a.as_ref(),
             self.vinv.adjoint(),
         );
+        // W ⊘ D on the lower triangle, then W is completed as Hermitian (D_ji = conj D_ij)
         for j in 0..d {
             let col = self.work_b.col_mut(j);
-            for (i, w) in col.iter_mut().enumerate() {
+            for (i, w) in col.iter_mut().enumerate().skip(j) {
                 *w *= self.inv_den[i * d + j];
             }
         }
+        mirror_lower(&mut self.work_b.as_mut());
         product(
             self.par,
+            false,
             self.work_a.as_mut(),
             self.v.as_ref(),
             self.work_b.as_ref(),
         );
-        let z = MatMut::from_row_major_slice_mut(&mut self.buf, d, d);
-        product(self.par, z, self.work_a.as_ref(), self.v.adjoint());
-        // re-symmetrise against rounding: the Krylov space is the Hermitian matrices
-        let b = &mut self.buf;
+        let mut z = MatMut::from_row_major_slice_mut(&mut self.buf, d, d);
+        product(
+            self.par,
+            true,
+            z.rb_mut(),
+            self.work_a.as_ref(),
+            self.v.adjoint(),
+        );
+        // the lower triangle of Z is formed; its diagonal is real up to rounding
         for r in 0..d {
-            for c in r..d {
-                let a = (b[r * d + c] + b[c * d + r].conj()) * 0.5;
-                b[r * d + c] = a;
-                b[c * d + r] = a.conj();
-            }
+            z[(r, r)].im = 0.0;
         }
+        mirror_lower(&mut z);
         crate::lindblad::to_panels(d, &self.buf, out);
     }
 }
