@@ -165,12 +165,19 @@ pub fn check_text(plan: &RunPlan, dim: usize, choice: &SolverChoice) -> String {
     }
     if let Some(sp) = &plan.steady {
         let n = (dim as u128) * (dim as u128);
+        // GMRES: 41 Krylov vectors (restart 40), iterate, right-hand side, 2 work vectors and the
+        // kernel's workspace; the no-jump preconditioner adds 6 d×d complex matrices
+        let gmres_matrices = match sp.preconditioner {
+            cavern_evolve::steady::GmresPreconditioner::NoJump => 52,
+            _ => 46,
+        };
         let _ = writeln!(
             s,
-            "steady      {} solver ({} unknowns d²; GMRES workspace ≈ {}), {} relaxation rate(s), envelopes frozen at t = {}{}",
+            "steady      {} solver ({} unknowns d²; GMRES with the {} preconditioner: workspace ≈ {}), {} relaxation rate(s), envelopes frozen at t = {}{}",
             sp.method.name(),
             n,
-            bytes_label(45 * n * 16),
+            sp.preconditioner.name(),
+            bytes_label(gmres_matrices * n * 16),
             sp.relaxation_rates,
             sig(sp.at_time),
             time_suffix(plan)

@@ -485,17 +485,21 @@ impl LindbladRhs {
                     let col = ci * CHUNK;
                     // fixed-size copies: registers, no memmove call
                     let xc: &mut [C64; CHUNK] = xc.try_into().expect("exact chunk");
-                    let mut acc = *xc;
+                    // Σ h·s first (no re/im swap per term), then X += −i·Σ h·s once
+                    let mut acc = [C64::new(0.0, 0.0); CHUNK];
                     for &(base, h) in act {
                         let src: &[C64; CHUNK] = rp[base + col..base + col + CHUNK]
                             .try_into()
                             .expect("exact chunk");
                         for (a, s) in acc.iter_mut().zip(src) {
-                            a.re += h * s.im;
-                            a.im -= h * s.re;
+                            a.re += h * s.re;
+                            a.im += h * s.im;
                         }
                     }
-                    *xc = acc;
+                    for (x, a) in xc.iter_mut().zip(&acc) {
+                        x.re += a.im;
+                        x.im -= a.re;
+                    }
                 }
                 let rest = chunks.into_remainder();
                 let col = w - rest.len();
@@ -519,7 +523,9 @@ impl LindbladRhs {
                     let src = &rho[base..base + len];
                     let vals = &j.val[c0 + off..c0 + off + len];
                     for ((o, &vc), s) in xr[off..off + len].iter_mut().zip(vals).zip(src) {
-                        *o += s * (wr * vc);
+                        let f = wr * vc;
+                        o.re += s.re * f;
+                        o.im += s.im * f;
                     }
                 }
             }
