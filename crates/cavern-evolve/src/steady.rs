@@ -12,8 +12,10 @@
 //!   factorisation ([`FactorStats`], [`DirectOptions::max_factor_bytes`]).
 //! - [`steady_state_gmres`]: restarted GMRES(m) (Y. Saad & M. H. Schultz, SIAM J. Sci. Stat.
 //!   Comput. 7, 856 (1986)), matrix-free: 𝓛 is applied by [`LindbladRhs`], never as a matrix.
-//!   Memory: about m + 7 d×d complex matrices (Krylov basis, iterate, work vectors, the
-//!   preconditioner and the kernel's workspace).
+//!   Right-preconditioned by default with the exact inverse of the no-jump part Kρ + ρK†
+//!   ([`GmresPreconditioner`]). Memory: about m + 6 d×d complex matrices (Krylov basis, iterate,
+//!   work vectors and the kernel's workspace), plus 6 for the no-jump preconditioner (1 for the
+//!   diagonal one).
 //! - [`steady_state_evolve`]: the fallback: Dormand–Prince time evolution until ρ stops changing.
 //! - [`steady_state`]: direct when d² is small enough, otherwise GMRES, then evolution.
 //!
@@ -86,7 +88,7 @@ const ZERO: C64 = C64::new(0.0, 0.0);
 pub enum SteadyMethod {
     /// Sparse LU of 𝓛 with one row replaced by the trace condition.
     Direct,
-    /// Restarted GMRES(m), Jacobi preconditioned, matrix-free.
+    /// Restarted GMRES(m), preconditioned, matrix-free.
     Gmres,
     /// Time evolution until dρ/dt is negligible.
     Evolution,
