@@ -14,8 +14,11 @@ pub enum Par {
 }
 
 /// Elements per parallel chunk of a vector operation. Fixed, so that reductions combine the same
-/// partial sums in the same order whatever the number of threads.
-pub const CHUNK: usize = 1 << 14;
+/// partial sums in the same order whatever the number of threads. 4096 complex numbers (64 KiB):
+/// small enough that d = 384 (36 chunks) splits evenly over two threads (1 << 14 gave 9 chunks,
+/// 5 against 4, and the end-to-end run at d = 384 took 0.80 s instead of 0.72 s on 2 threads;
+/// no change at d = 1536; docs/performance.md §2).
+pub const CHUNK: usize = 1 << 12;
 
 /// Run `f(offset, chunk)` over consecutive chunks of `out` of [`CHUNK`] elements.
 pub fn for_chunks<F>(par: Par, out: &mut [C64], f: F)
