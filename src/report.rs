@@ -165,11 +165,9 @@ pub fn check_text(plan: &RunPlan, dim: usize, choice: &SolverChoice) -> String {
     }
     if let Some(sp) = &plan.steady {
         let n = (dim as u128) * (dim as u128);
-        // GMRES: 41 Krylov vectors (restart 40), iterate, right-hand side, 2 work vectors and the
-        // kernel's workspace; the no-jump preconditioner adds 6 d×d complex matrices
-        let gmres_matrices = match sp.preconditioner {
-            cavern_evolve::steady::GmresPreconditioner::NoJump => 52,
-            _ => 46,
+        let gmres = cavern_evolve::steady::GmresOptions {
+            preconditioner: sp.preconditioner,
+            ..Default::default()
         };
         let _ = writeln!(
             s,
@@ -177,7 +175,7 @@ pub fn check_text(plan: &RunPlan, dim: usize, choice: &SolverChoice) -> String {
             sp.method.name(),
             n,
             sp.preconditioner.name(),
-            bytes_label(gmres_matrices * n * 16),
+            bytes_label(cavern_evolve::steady::gmres_workspace_bytes(dim, &gmres)),
             sp.relaxation_rates,
             sig(sp.at_time),
             time_suffix(plan)

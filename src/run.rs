@@ -302,6 +302,7 @@ pub fn memory_guard(plan: &RunPlan, choice: &SolverChoice) -> Result<(), AppErro
             )));
         }
     }
+    steady_memory_guard(plan, choice.density.dim)?;
     let est = choice.estimate();
     if est.fits() {
         return Ok(());
@@ -350,6 +351,49 @@ pub fn memory_guard(plan: &RunPlan, choice: &SolverChoice) -> Result<(), AppErro
             )
         ),
     }))
+}
+
+/// Up-front memory check of `[steady_state]` (before anything runs): GMRES (`"iterative"`) and
+/// time evolution (`"evolve"`) have known workspaces; `"auto"` needs one of them to fit (the
+/// sparse LU, tried first, is checked after its symbolic analysis). `"direct"` is checked there.
+fn steady_memory_guard(plan: &RunPlan, d: usize) -> Result<(), AppError> {
+    use cavern_evolve::steady::{evolution_workspace_bytes, gmres_workspace_bytes, GmresOptions};
+    let Some(sp) = &plan.steady else {
+        return Ok(());
+    };
+    let Some(physical) = physical_memory() else {
+        return Ok(());
+    };
+    let allowed = (physical as f64 * plan.solver.memory_share) as u128;
+    let gmres = gmres_workspace_bytes(
+        d,
+        &GmresOptions {
+            preconditioner: sp.preconditioner,
+            ..Default::default()
+        },
+    );
+    let evolution = evolution_workspace_bytes(d);
+    let too_large = match sp.method {
+        SteadyRequest::Iterative => gmres > allowed,
+        SteadyRequest::Evolve => evolution > allowed,
+        SteadyRequest::Auto => gmres.min(evolution) > allowed,
+        SteadyRequest::Direct => false,
+    };
+    if !too_large {
+        return Ok(());
+    }
+    Err(AppError::Input(format!(
+        "{}: [steady_state] method = \"{}\" does not fit: for d = {d} GMRES needs about {} and the \
+         time-evolution solve about {}, more than [solver] memory_share = {} of this machine's {} \
+         of memory. Reduce the model (Fock truncation `levels`, sites), or raise `memory_share` \
+         if the machine is otherwise idle",
+        plan.path.display(),
+        sp.method.name(),
+        bytes_label(gmres),
+        bytes_label(evolution),
+        plan.solver.memory_share,
+        bytes_label(physical)
+    )))
 }
 
 /// What a trajectory run produced besides the averaged series.
@@ -845,6 +889,8 @@ fn solve_steady(
     // memory guard of the sparse LU: its predicted size against the allowed share of memory
     let allowed = physical_memory().map(|p| (p as f64 * plan.solver.memory_share) as u128);
     opts.direct.max_factor_bytes = allowed;
+    opts.gmres.max_workspace_bytes = allowed;
+    opts.evolution.max_workspace_bytes = allowed;
     let t = sp.at_time;
     let solved = match sp.method {
         SteadyRequest::Auto => steady::steady_state(me, t, &opts),
@@ -878,6 +924,33 @@ fn solve_steady(
                 plan.path.display(),
                 plan.solver.memory_share
             )))
+        }
+        Err(e @ SteadyError::WorkspaceTooLarge { .. }) => {
+            return Err(AppError::Input(format!(
+                "{}: [steady_state] method = \"{}\": {e} ([solver] memory_share = {} of this \
+                 machine's memory); reduce the model (Fock truncation `levels`, sites) or raise \
+                 `memory_share` if the machine is otherwise idle",
+                plan.path.display(),
+                sp.method.name(),
+                plan.solver.memory_share
+            )))
+        }
+        Err(SteadyError::AllFailed(errors))
+            if errors.iter().all(|e| {
+                matches!(
+                    e,
+                    SteadyError::TooLarge { .. } | SteadyError::WorkspaceTooLarge { .. }
+                )
+            }) =>
+        {
+            let why: Vec<String> = errors.iter().map(|e| e.to_string()).collect();
+            return Err(AppError::Input(format!(
+                "{}: [steady_state]: no steady-state method fits in [solver] memory_share = {} of \
+                 this machine's memory: {}; reduce the model (Fock truncation `levels`, sites)",
+                plan.path.display(),
+                plan.solver.memory_share,
+                why.join("; ")
+            )));
         }
         Err(e) => {
             return Err(AppError::Runtime(format!(

@@ -160,6 +160,21 @@ pub enum SteadyError {
         /// Allowed bytes.
         allowed: u128,
     },
+    /// The working memory of an iterative or evolution solve would exceed the allowed bytes
+    /// ([`GmresOptions::max_workspace_bytes`], [`EvolutionOptions::max_workspace_bytes`]);
+    /// nothing was allocated.
+    #[error(
+        "{method} refused: its working memory would be about {needed} bytes, more than the \
+         allowed {allowed} bytes"
+    )]
+    WorkspaceTooLarge {
+        /// The method refused.
+        method: SteadyMethod,
+        /// Predicted bytes.
+        needed: u128,
+        /// Allowed bytes.
+        allowed: u128,
+    },
     /// A direct solution's residual is above the accepted level.
     #[error(
         "{method}: relative residual {relative_residual:e} is above the accepted {tol:e} \
@@ -348,6 +363,42 @@ pub struct GmresOptions {
     pub par: Par,
     /// The preconditioner (default [`GmresPreconditioner::NoJump`]).
     pub preconditioner: GmresPreconditioner,
+    /// Refuse ([`SteadyError::WorkspaceTooLarge`]) when [`gmres_workspace_bytes`] exceeds this.
+    /// `None`: no limit.
+    pub max_workspace_bytes: Option<u128>,
+}
+
+/// Bytes GMRES allocates for dimension `d` with `opts`: the Krylov basis (restart + 1 vectors),
+/// iterate, right-hand side, two work vectors, the kernel's workspace and the start guess (6),
+/// and the preconditioner (6 d×d matrices for the no-jump one, 1 for the diagonal one), each
+/// d² complex numbers.
+pub fn gmres_workspace_bytes(d: usize, opts: &GmresOptions) -> u128 {
+    let pre = match opts.preconditioner {
+        GmresPreconditioner::NoJump => 6,
+        GmresPreconditioner::Diagonal => 1,
+    };
+    (opts.restart as u128 + 1 + 6 + pre) * (d as u128) * (d as u128) * 16
+}
+
+/// Bytes the evolution fallback allocates for dimension `d`: the integrator's nine vectors, the
+/// kernel's workspace, the state and its copy (12 d×d complex matrices).
+pub fn evolution_workspace_bytes(d: usize) -> u128 {
+    12 * (d as u128) * (d as u128) * 16
+}
+
+fn check_workspace(
+    method: SteadyMethod,
+    needed: u128,
+    allowed: Option<u128>,
+) -> Result<(), SteadyError> {
+    match allowed {
+        Some(allowed) if needed > allowed => Err(SteadyError::WorkspaceTooLarge {
+            method,
+            needed,
+            allowed,
+        }),
+        _ => Ok(()),
+    }
 }
 
 /// Right preconditioner of [`steady_state_gmres`].
@@ -382,6 +433,7 @@ impl Default for GmresOptions {
             tol: 1e-11,
             par: Par::Rayon,
             preconditioner: GmresPreconditioner::NoJump,
+            max_workspace_bytes: None,
         }
     }
 }
@@ -396,6 +448,9 @@ pub struct EvolutionOptions {
     pub max_time: f64,
     /// Integrator options (defaults: rtol 1e-8, atol 1e-11, otherwise [`DopriOptions`]'s).
     pub dopri: DopriOptions,
+    /// Refuse ([`SteadyError::WorkspaceTooLarge`]) when [`evolution_workspace_bytes`] exceeds
+    /// this. `None`: no limit.
+    pub max_workspace_bytes: Option<u128>,
 }
 
 impl Default for EvolutionOptions {
@@ -408,6 +463,7 @@ impl Default for EvolutionOptions {
                 atol: 1e-11,
                 ..Default::default()
             },
+            max_workspace_bytes: None,
         }
     }
 }
@@ -1157,6 +1213,11 @@ pub fn steady_state_gmres(
             opts.restart, opts.max_iterations, opts.tol
         )));
     }
+    check_workspace(
+        SteadyMethod::Gmres,
+        gmres_workspace_bytes(me.space.dim(), opts),
+        opts.max_workspace_bytes,
+    )?;
     let mf = frozen(me, t_eval);
     let d = mf.space.dim();
     let n = d * d;
@@ -1401,6 +1462,11 @@ pub fn steady_state_evolve(
     rho0: Option<&[C64]>,
 ) -> Result<SteadySolution, SteadyError> {
     check_t_eval(t_eval)?;
+    check_workspace(
+        SteadyMethod::Evolution,
+        evolution_workspace_bytes(me.space.dim()),
+        opts.max_workspace_bytes,
+    )?;
     if !(opts.tol > 0.0 && opts.max_time > 0.0 && opts.max_time.is_finite()) {
         return Err(SteadyError::Options(format!(
             "evolution: tol = {} must be > 0 and max_time = {} finite and > 0",

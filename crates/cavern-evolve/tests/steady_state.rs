@@ -1047,3 +1047,61 @@ fn degenerate_steady_states_are_reported() {
         }
     }
 }
+
+/// The iterative and evolution solvers refuse before allocating when their known workspace
+/// exceeds the limit, and the driver then reports every method's refusal (common practice: check
+/// the memory before allocating).
+#[test]
+fn workspace_limits_refuse_before_allocating() {
+    let me = driven_jc();
+    let d = me.space.dim();
+    let gopts = GmresOptions {
+        max_workspace_bytes: Some(1000),
+        ..seq_gmres()
+    };
+    match steady::steady_state_gmres(&me, 0.0, &gopts, None) {
+        Err(SteadyError::WorkspaceTooLarge {
+            method,
+            needed,
+            allowed,
+        }) => {
+            assert_eq!(method, SteadyMethod::Gmres);
+            assert_eq!(needed, steady::gmres_workspace_bytes(d, &gopts));
+            assert_eq!(allowed, 1000);
+        }
+        other => panic!("expected a refusal, got {other:?}"),
+    }
+    let mut eopts = seq_evolution();
+    eopts.max_workspace_bytes = Some(1000);
+    assert!(matches!(
+        steady::steady_state_evolve(&me, 0.0, &eopts, None),
+        Err(SteadyError::WorkspaceTooLarge {
+            method: SteadyMethod::Evolution,
+            ..
+        })
+    ));
+    let opts = SteadyOptions {
+        direct: DirectOptions {
+            max_factor_bytes: Some(1000),
+            ..Default::default()
+        },
+        gmres: gopts,
+        evolution: eopts,
+        ..Default::default()
+    };
+    match steady::steady_state(&me, 0.0, &opts) {
+        Err(SteadyError::AllFailed(errors)) => {
+            assert_eq!(errors.len(), 3, "{errors:?}");
+            assert!(matches!(errors[0], SteadyError::TooLarge { .. }));
+            assert!(matches!(errors[1], SteadyError::WorkspaceTooLarge { .. }));
+            assert!(matches!(errors[2], SteadyError::WorkspaceTooLarge { .. }));
+        }
+        other => panic!("expected every method to refuse, got {other:?}"),
+    }
+    // with room, both run
+    let gopts = GmresOptions {
+        max_workspace_bytes: Some(steady::gmres_workspace_bytes(d, &seq_gmres())),
+        ..seq_gmres()
+    };
+    steady::steady_state_gmres(&me, 0.0, &gopts, None).unwrap();
+}
