@@ -165,17 +165,14 @@ pub fn check_text(plan: &RunPlan, dim: usize, choice: &SolverChoice) -> String {
     }
     if let Some(sp) = &plan.steady {
         let n = (dim as u128) * (dim as u128);
-        let gmres = cavern_evolve::steady::GmresOptions {
-            preconditioner: sp.preconditioner,
-            ..Default::default()
-        };
+        let (gmres, _) = crate::run::steady_workspaces(sp, dim);
         let _ = writeln!(
             s,
             "steady      {} solver ({} unknowns d²; GMRES with the {} preconditioner: workspace ≈ {}), {} relaxation rate(s), envelopes frozen at t = {}{}",
             sp.method.name(),
             n,
             sp.preconditioner.name(),
-            bytes_label(cavern_evolve::steady::gmres_workspace_bytes(dim, &gmres)),
+            bytes_label(gmres),
             sp.relaxation_rates,
             sig(sp.at_time),
             time_suffix(plan)

@@ -353,11 +353,24 @@ pub fn memory_guard(plan: &RunPlan, choice: &SolverChoice) -> Result<(), AppErro
     }))
 }
 
+/// Bytes of the iterative (GMRES, with the configured preconditioner) and the time-evolution
+/// steady-state solves for dimension `d`.
+pub fn steady_workspaces(sp: &crate::config::SteadyPlan, d: usize) -> (u128, u128) {
+    use cavern_evolve::steady::{evolution_workspace_bytes, gmres_workspace_bytes, GmresOptions};
+    let gmres = GmresOptions {
+        preconditioner: sp.preconditioner,
+        ..Default::default()
+    };
+    (
+        gmres_workspace_bytes(d, &gmres),
+        evolution_workspace_bytes(d),
+    )
+}
+
 /// Up-front memory check of `[steady_state]` (before anything runs): GMRES (`"iterative"`) and
 /// time evolution (`"evolve"`) have known workspaces; `"auto"` needs one of them to fit (the
 /// sparse LU, tried first, is checked after its symbolic analysis). `"direct"` is checked there.
 fn steady_memory_guard(plan: &RunPlan, d: usize) -> Result<(), AppError> {
-    use cavern_evolve::steady::{evolution_workspace_bytes, gmres_workspace_bytes, GmresOptions};
     let Some(sp) = &plan.steady else {
         return Ok(());
     };
@@ -365,14 +378,7 @@ fn steady_memory_guard(plan: &RunPlan, d: usize) -> Result<(), AppError> {
         return Ok(());
     };
     let allowed = (physical as f64 * plan.solver.memory_share) as u128;
-    let gmres = gmres_workspace_bytes(
-        d,
-        &GmresOptions {
-            preconditioner: sp.preconditioner,
-            ..Default::default()
-        },
-    );
-    let evolution = evolution_workspace_bytes(d);
+    let (gmres, evolution) = steady_workspaces(sp, d);
     let too_large = match sp.method {
         SteadyRequest::Iterative => gmres > allowed,
         SteadyRequest::Evolve => evolution > allowed,
@@ -889,6 +895,8 @@ fn solve_steady(
     // memory guard of the sparse LU: its predicted size against the allowed share of memory
     let allowed = physical_memory().map(|p| (p as f64 * plan.solver.memory_share) as u128);
     opts.direct.max_factor_bytes = allowed;
+    // memory_guard has already refused the explicit methods that cannot fit (exit 2); these
+    // limits make `auto` skip a solver that does not fit instead of allocating it
     opts.gmres.max_workspace_bytes = allowed;
     opts.evolution.max_workspace_bytes = allowed;
     let t = sp.at_time;
@@ -924,33 +932,6 @@ fn solve_steady(
                 plan.path.display(),
                 plan.solver.memory_share
             )))
-        }
-        Err(e @ SteadyError::WorkspaceTooLarge { .. }) => {
-            return Err(AppError::Input(format!(
-                "{}: [steady_state] method = \"{}\": {e} ([solver] memory_share = {} of this \
-                 machine's memory); reduce the model (Fock truncation `levels`, sites) or raise \
-                 `memory_share` if the machine is otherwise idle",
-                plan.path.display(),
-                sp.method.name(),
-                plan.solver.memory_share
-            )))
-        }
-        Err(SteadyError::AllFailed(errors))
-            if errors.iter().all(|e| {
-                matches!(
-                    e,
-                    SteadyError::TooLarge { .. } | SteadyError::WorkspaceTooLarge { .. }
-                )
-            }) =>
-        {
-            let why: Vec<String> = errors.iter().map(|e| e.to_string()).collect();
-            return Err(AppError::Input(format!(
-                "{}: [steady_state]: no steady-state method fits in [solver] memory_share = {} of \
-                 this machine's memory: {}; reduce the model (Fock truncation `levels`, sites)",
-                plan.path.display(),
-                plan.solver.memory_share,
-                why.join("; ")
-            )));
         }
         Err(e) => {
             return Err(AppError::Runtime(format!(

@@ -1239,45 +1239,50 @@ pub fn steady_state_gmres(
     let mut tmp = vec![ZERO; n];
     lindblad::to_panels(d, &marker, &mut tmp);
     let diag_pos: Vec<usize> = (0..n).filter(|&i| tmp[i] != ZERO).collect();
-    let ldiag = liouvillian_diagonal(&mf);
+    let mut ldiag = liouvillian_diagonal(&mf);
     let pop_rate = (0..d).map(|r| ldiag[r * d + r].norm()).fold(0.0, f64::max);
     let s = -pop_rate.max(scale / d as f64).max(f64::MIN_POSITIVE);
     let sd = s / d as f64;
-    let mut mdiag = ldiag;
-    for r in 0..d {
-        mdiag[r * d + r] += sd;
-    }
     let mut notes = Vec::new();
-    let mut pre = None;
-    if opts.preconditioner == GmresPreconditioner::NoJump {
-        let k = mf.static_generator().to_dense();
-        match sylvester::Sylvester::new(d, &k, sd.abs(), par) {
-            Ok(p) => pre = Some(Preconditioner::NoJump(Box::new(p))),
-            Err(e) => notes.push(format!(
-                "GMRES: the no-jump preconditioner could not be built ({}); used the diagonal one",
-                e.0
-            )),
+    let pre = match opts.preconditioner {
+        GmresPreconditioner::NoJump => {
+            let k = mf.static_generator().to_dense();
+            match sylvester::Sylvester::new(d, &k, sd.abs(), par) {
+                Ok(p) => {
+                    // the diagonal of 𝓛 is not needed any more: free it before the iteration
+                    ldiag = Vec::new();
+                    Some(Preconditioner::NoJump(Box::new(p)))
+                }
+                Err(e) => {
+                    notes.push(format!(
+                        "GMRES: the no-jump preconditioner could not be built ({}); used the \
+                         diagonal one",
+                        e.0
+                    ));
+                    None
+                }
+            }
         }
-    }
-    let pre = match pre {
-        Some(p) => p,
-        None => {
-            let floor = f64::EPSILON * scale;
-            let inv_rm: Vec<C64> = mdiag
-                .iter()
-                .map(|&v| {
-                    if v.norm() > floor {
-                        v.inv()
-                    } else {
-                        C64::new(-1.0 / scale.max(f64::MIN_POSITIVE), 0.0)
-                    }
-                })
-                .collect();
-            let mut inv_diag = vec![ZERO; n];
-            lindblad::to_panels(d, &inv_rm, &mut inv_diag);
-            Preconditioner::Diagonal(inv_diag)
-        }
+        GmresPreconditioner::Diagonal => None,
     };
+    let pre = pre.unwrap_or_else(|| {
+        // P = diag(M) = diag(𝓛) + s/d on the population entries
+        let mut mdiag = std::mem::take(&mut ldiag);
+        for r in 0..d {
+            mdiag[r * d + r] += sd;
+        }
+        let floor = f64::EPSILON * scale;
+        for v in &mut mdiag {
+            *v = if v.norm() > floor {
+                v.inv()
+            } else {
+                C64::new(-1.0 / scale.max(f64::MIN_POSITIVE), 0.0)
+            };
+        }
+        let mut inv_diag = vec![ZERO; n];
+        lindblad::to_panels(d, &mdiag, &mut inv_diag);
+        Preconditioner::Diagonal(inv_diag)
+    });
     let used = match pre {
         Preconditioner::Diagonal(_) => GmresPreconditioner::Diagonal,
         Preconditioner::NoJump(_) => GmresPreconditioner::NoJump,
