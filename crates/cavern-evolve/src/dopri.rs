@@ -9,7 +9,7 @@
 //! Error norm: err = √( (1/n) Σᵢ (|eᵢ| / (atol + rtol·max(|y₀ᵢ|, |y₁ᵢ|)))² ) over the n complex
 //! components (modulus of each complex number); a step is accepted when err ≤ 1.
 
-use crate::par::{for_chunks, sum_ranges, Par};
+use crate::par::{for_chunks, for_chunks2, sum_ranges, Par};
 use crate::EvolveError;
 use num_complex::Complex64 as C64;
 
@@ -353,7 +353,7 @@ impl Dopri5 {
         self.eval_stage(rhs, t + C5 * h, 4);
         self.stage(par, h, &[(0, A61), (1, A62), (2, A63), (3, A64), (4, A65)]);
         self.eval_stage(rhs, t + h, 5);
-        self.stage(par, h, &[(0, A71), (2, A73), (3, A74), (4, A75), (5, A76)]);
+        self.stage_last(par, h);
         self.eval_stage(rhs, t + h, 6);
         let err = self.error_norm(h);
 
@@ -400,25 +400,70 @@ impl Dopri5 {
     }
 
     fn stage(&mut self, par: Par, h: f64, coef: &[(usize, f64)]) {
-        let (y, k) = (&self.y, &self.k);
-        // one fused pass: ytmp = y + h Σⱼ aⱼ kⱼ (at most six stages)
-        let mut ks: [&[C64]; 6] = [&[]; 6];
-        let mut ha = [0.0; 6];
-        for (m, &(j, a)) in coef.iter().enumerate() {
-            ks[m] = &k[j];
-            ha[m] = h * a;
+        // one fused pass: ytmp = y + h Σⱼ aⱼ kⱼ (one to five stages), specialised on the count so
+        // that the inner loop is unrolled and free of bounds checks
+        match coef.len() {
+            1 => self.stage_n::<1>(par, h, coef),
+            2 => self.stage_n::<2>(par, h, coef),
+            3 => self.stage_n::<3>(par, h, coef),
+            4 => self.stage_n::<4>(par, h, coef),
+            5 => self.stage_n::<5>(par, h, coef),
+            m => unreachable!("DOPRI5 stages combine at most five vectors, not {m}"),
         }
-        let m = coef.len();
-        for_chunks(par, &mut self.ytmp, |lo, o| {
-            for (i, x) in o.iter_mut().enumerate() {
-                let g = lo + i;
-                let mut acc = y[g];
-                for q in 0..m {
-                    acc += ks[q][g] * ha[q];
+    }
+
+    fn stage_n<const M: usize>(&mut self, par: Par, h: f64, coef: &[(usize, f64)]) {
+        let (y, k) = (&self.y, &self.k);
+        let ks: [&[C64]; M] = std::array::from_fn(|m| &k[coef[m].0][..]);
+        let ha: [f64; M] = std::array::from_fn(|m| h * coef[m].1);
+        for_chunks(
+            par,
+            &mut self.ytmp,
+            #[inline(always)]
+            |lo, o| {
+                let n = o.len();
+                let y = &y[lo..lo + n];
+                let ks: [&[C64]; M] = std::array::from_fn(|q| &ks[q][lo..lo + n]);
+                for i in 0..n {
+                    let mut acc = y[i];
+                    for q in 0..M {
+                        acc += ks[q][i] * ha[q];
+                    }
+                    o[i] = acc;
                 }
-                *x = acc;
-            }
-        });
+            },
+        );
+    }
+
+    /// Stage 7 input y₁ = y + h Σ a₇ⱼ kⱼ, and in the same pass the part of the error estimate that
+    /// does not need k₇: E₁k₁ + E₃k₃ + … + E₆k₆ (same k's) into `k[1]`, which no later use needs
+    /// (stage 7 and the dense output skip k₂). The error norm then reads four vectors, not eight.
+    fn stage_last(&mut self, par: Par, h: f64) {
+        let y = &self.y;
+        let [k0, k1, k2, k3, k4, k5, _] = &mut self.k;
+        let (k0, k2, k3, k4, k5) = (&*k0, &*k2, &*k3, &*k4, &*k5);
+        let ha = [h * A71, h * A73, h * A74, h * A75, h * A76];
+        for_chunks2(
+            par,
+            &mut self.ytmp,
+            k1,
+            #[inline(always)]
+            |lo, o, e| {
+                let n = o.len();
+                let y = &y[lo..lo + n];
+                let (k0, k2, k3) = (&k0[lo..lo + n], &k2[lo..lo + n], &k3[lo..lo + n]);
+                let (k4, k5) = (&k4[lo..lo + n], &k5[lo..lo + n]);
+                for i in 0..n {
+                    o[i] = y[i]
+                        + k0[i] * ha[0]
+                        + k2[i] * ha[1]
+                        + k3[i] * ha[2]
+                        + k4[i] * ha[3]
+                        + k5[i] * ha[4];
+                    e[i] = k0[i] * E1 + k2[i] * E3 + k3[i] * E4 + k4[i] * E5 + k5[i] * E6;
+                }
+            },
+        );
     }
 
     fn eval_stage<R: Rhs>(&mut self, rhs: &mut R, t: f64, into: usize) {
@@ -429,22 +474,25 @@ impl Dopri5 {
     fn error_norm(&mut self, h: f64) -> f64 {
         let (atol, rtol, n) = (self.opts.atol, self.opts.rtol, self.y.len());
         let (y, y1, k) = (&self.y, &self.ytmp, &self.k);
-        let s = sum_ranges(self.opts.par, n, &mut self.partials, |lo, hi| {
-            let mut acc = 0.0;
-            for i in lo..hi {
-                let e = (k[0][i] * E1
-                    + k[2][i] * E3
-                    + k[3][i] * E4
-                    + k[4][i] * E5
-                    + k[5][i] * E6
-                    + k[6][i] * E7)
-                    * h;
-                // |e|²/sk² without hypot: sk = atol + rtol·max(|y₀|, |y₁|)
-                let sk = atol + rtol * y[i].norm_sqr().max(y1[i].norm_sqr()).sqrt();
-                acc += e.norm_sqr() / (sk * sk);
-            }
-            acc
-        });
+        let s = sum_ranges(
+            self.opts.par,
+            n,
+            &mut self.partials,
+            #[inline(always)]
+            |lo, hi| {
+                let (y, y1) = (&y[lo..hi], &y1[lo..hi]);
+                let (e5, k6) = (&k[1][lo..hi], &k[6][lo..hi]);
+                let mut acc = 0.0;
+                for i in 0..hi - lo {
+                    // k[1] holds E₁k₁ + E₃k₃ + E₄k₄ + E₅k₅ + E₆k₆ (see `stage_last`)
+                    let e = (e5[i] + k6[i] * E7) * h;
+                    // |e|²/sk² without hypot: sk = atol + rtol·max(|y₀|, |y₁|)
+                    let sk = atol + rtol * y[i].norm_sqr().max(y1[i].norm_sqr()).sqrt();
+                    acc += e.norm_sqr() / (sk * sk);
+                }
+                acc
+            },
+        );
         (s / n.max(1) as f64).sqrt()
     }
 
@@ -462,20 +510,27 @@ impl Dopri5 {
         let theta1 = 1.0 - theta;
         // after acceptance: y0 = ytmp, y1 = y, old k1 = k[6], new f(y1) = k[0]
         let (y0, y1, k) = (&self.ytmp, &self.y, &self.k);
-        for_chunks(self.opts.par, out, |lo, o| {
-            for (j, x) in o.iter_mut().enumerate() {
-                let i = lo + j;
-                let k1 = k[6][i];
-                let k7 = k[0][i];
-                let ydiff = y1[i] - y0[i];
-                let bspl = k1 * h - ydiff;
-                let r4 = ydiff - k7 * h - bspl;
-                let r5 =
-                    (k1 * D1 + k[2][i] * D3 + k[3][i] * D4 + k[4][i] * D5 + k[5][i] * D6 + k7 * D7)
-                        * h;
-                *x = y0[i] + (ydiff + (bspl + (r4 + r5 * theta1) * theta) * theta1) * theta;
-            }
-        });
+        for_chunks(
+            self.opts.par,
+            out,
+            #[inline(always)]
+            |lo, o| {
+                let n = o.len();
+                let (y0, y1) = (&y0[lo..lo + n], &y1[lo..lo + n]);
+                let (k0, k2, k3) = (&k[0][lo..lo + n], &k[2][lo..lo + n], &k[3][lo..lo + n]);
+                let (k4, k5, k6) = (&k[4][lo..lo + n], &k[5][lo..lo + n], &k[6][lo..lo + n]);
+                for i in 0..n {
+                    let k1 = k6[i];
+                    let k7 = k0[i];
+                    let ydiff = y1[i] - y0[i];
+                    let bspl = k1 * h - ydiff;
+                    let r4 = ydiff - k7 * h - bspl;
+                    let r5 =
+                        (k1 * D1 + k2[i] * D3 + k3[i] * D4 + k4[i] * D5 + k5[i] * D6 + k7 * D7) * h;
+                    o[i] = y0[i] + (ydiff + (bspl + (r4 + r5 * theta1) * theta) * theta1) * theta;
+                }
+            },
+        );
     }
 }
 
