@@ -611,6 +611,26 @@ mod tests {
         out
     }
 
+    /// A Hermitian d×d test matrix (row-major) with no special structure.
+    fn hermitian_test_matrix(d: usize) -> Vec<C64> {
+        let mut rho = vec![C64::new(0.0, 0.0); d * d];
+        for i in 0..d {
+            for j in 0..=i {
+                let v = C64::new(
+                    ((i * 31 + j * 17) % 13) as f64 / 13.0,
+                    if i == j {
+                        0.0
+                    } else {
+                        ((i * 7 + j * 3) % 11) as f64 / 11.0 - 0.5
+                    },
+                );
+                rho[i * d + j] = v;
+                rho[j * d + i] = v.conj();
+            }
+        }
+        rho
+    }
+
     #[test]
     fn structured_kernel_equals_the_dense_definition() {
         // every kind of term, with a time-dependent coupling and both coupling forms
@@ -670,22 +690,7 @@ mod tests {
             ];
             let me = net.build().unwrap();
             let d = me.space.dim();
-            // a Hermitian, trace-one test matrix with no special structure
-            let mut rho = vec![C64::new(0.0, 0.0); d * d];
-            for i in 0..d {
-                for j in 0..=i {
-                    let v = C64::new(
-                        ((i * 31 + j * 17) % 13) as f64 / 13.0,
-                        if i == j {
-                            0.0
-                        } else {
-                            ((i * 7 + j * 3) % 11) as f64 / 11.0 - 0.5
-                        },
-                    );
-                    rho[i * d + j] = v;
-                    rho[j * d + i] = v.conj();
-                }
-            }
+            let rho = hermitian_test_matrix(d);
             for par in [Par::Seq, Par::Rayon] {
                 let mut rhs = LindbladRhs::new(&me, par).unwrap();
                 let mut out = vec![C64::new(0.0, 0.0); d * d];
@@ -738,21 +743,7 @@ mod tests {
         net.coupling = vec![vec![0.5], vec![0.4], vec![0.3], vec![0.2]];
         let me = net.build().unwrap();
         let d = me.space.dim();
-        let mut rho = vec![C64::new(0.0, 0.0); d * d];
-        for i in 0..d {
-            for j in 0..=i {
-                let v = C64::new(
-                    ((i * 29 + j * 13) % 17) as f64 / 17.0,
-                    if i == j {
-                        0.0
-                    } else {
-                        ((i * 5 + j * 11) % 7) as f64 / 7.0 - 0.5
-                    },
-                );
-                rho[i * d + j] = v;
-                rho[j * d + i] = v.conj();
-            }
-        }
+        let rho = hermitian_test_matrix(d);
         let run = |baseline: bool| {
             crate::par::BASELINE.with(|b| b.set(baseline));
             let mut rhs = LindbladRhs::new(&me, Par::Seq).unwrap();

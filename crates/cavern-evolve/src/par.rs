@@ -31,7 +31,9 @@ pub fn vectorized<R>(f: impl FnOnce() -> R) -> R {
     if BASELINE.with(|b| b.get()) {
         return pulp::Arch::Scalar.dispatch(f);
     }
-    pulp::Arch::new().dispatch(f)
+    // the CPU is probed once per process, not once per chunk
+    static ARCH: std::sync::OnceLock<pulp::Arch> = std::sync::OnceLock::new();
+    ARCH.get_or_init(pulp::Arch::new).dispatch(f)
 }
 
 #[cfg(test)]
