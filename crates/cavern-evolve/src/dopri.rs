@@ -23,6 +23,18 @@ pub trait Rhs {
     }
     /// Write f(t, y) into `dy` (both of length [`Rhs::len`]). Must not allocate per call.
     fn eval(&mut self, t: f64, y: &[C64], dy: &mut [C64]);
+    /// The leading components the integrator has to carry, (m₁, m₂) with m₁ ≤ m₂ ≤ len: the
+    /// components from m₂ on follow from the first m₂ (see [`Rhs::complete`]), and in the error
+    /// norm each of the components m₁..m₂ stands for two of equal modulus (a Hermitian matrix
+    /// stored by its lower half: m₁ diagonal, m₂ − m₁ below the diagonal). `eval` then needs to
+    /// write only the first m₂ components of `dy`. Default: all components, each once.
+    fn carried(&self) -> (usize, usize) {
+        (self.len(), self.len())
+    }
+    /// Fill components m₂.. of `y` from the first m₂ (see [`Rhs::carried`]). Default: nothing.
+    fn complete(&self, y: &mut [C64]) {
+        let _ = y;
+    }
 }
 
 /// Numerical options of the integrator (physical parameters live in the model).
@@ -147,6 +159,8 @@ pub struct Dopri5 {
     last_rejected: bool,
     bad_values: u32,
     partials: Vec<f64>,
+    /// [`Rhs::carried`] of the right-hand side.
+    carried: (usize, usize),
     stats: Stats,
 }
 
@@ -190,6 +204,7 @@ impl Dopri5 {
             last_rejected: false,
             bad_values: 0,
             partials: Vec::new(),
+            carried: rhs.carried(),
             stats: Stats::default(),
         };
         if s.y.iter().any(|v| !v.re.is_finite() || !v.im.is_finite()) {
@@ -210,11 +225,32 @@ impl Dopri5 {
         Ok(s)
     }
 
+    /// Σ f over all n components, from the carried ones: f(lo, hi) sums components lo..hi, and
+    /// those past m₁ count twice (see [`Rhs::carried`]).
+    fn carried_sum<F>(par: Par, carried: (usize, usize), partials: &mut Vec<f64>, f: F) -> f64
+    where
+        F: Fn(usize, usize) -> f64 + Sync + Send,
+    {
+        let (m1, m2) = carried;
+        let once = sum_ranges(par, m1, partials, &f);
+        if m2 == m1 {
+            return once;
+        }
+        let twice = sum_ranges(
+            par,
+            m2 - m1,
+            partials,
+            #[inline(always)]
+            |lo, hi| f(m1 + lo, m1 + hi),
+        );
+        once + 2.0 * twice
+    }
+
     /// Weighted RMS norm of `v` with weights atol + rtol·|y|.
     fn weighted_norm(&mut self, which: usize) -> f64 {
         let (atol, rtol, n) = (self.opts.atol, self.opts.rtol, self.y.len());
         let (y, v) = (&self.y, &self.k[which]);
-        let s = sum_ranges(self.opts.par, n, &mut self.partials, |lo, hi| {
+        let s = Self::carried_sum(self.opts.par, self.carried, &mut self.partials, |lo, hi| {
             (lo..hi)
                 .map(|i| (v[i].norm() / (atol + rtol * y[i].norm())).powi(2))
                 .sum()
@@ -229,7 +265,7 @@ impl Dopri5 {
         let (atol, rtol) = (self.opts.atol, self.opts.rtol);
         let dny = {
             let y = &self.y;
-            let s = sum_ranges(self.opts.par, n, &mut self.partials, |lo, hi| {
+            let s = Self::carried_sum(self.opts.par, self.carried, &mut self.partials, |lo, hi| {
                 (lo..hi)
                     .map(|i| (y[i].norm() / (atol + rtol * y[i].norm())).powi(2))
                     .sum()
@@ -244,17 +280,18 @@ impl Dopri5 {
         h = h.min(self.opts.h_max);
         {
             let (y, k0) = (&self.y, &self.k[0]);
-            for_chunks(self.opts.par, &mut self.ytmp, |lo, o| {
+            for_chunks(self.opts.par, &mut self.ytmp[..self.carried.1], |lo, o| {
                 for (j, x) in o.iter_mut().enumerate() {
                     *x = y[lo + j] + k0[lo + j] * h;
                 }
             });
         }
         let [k0, k1, ..] = &mut self.k;
+        rhs.complete(&mut self.ytmp);
         rhs.eval(self.t + h, &self.ytmp, k1);
         self.stats.rhs_evals += 1;
         let (y, k0, k1) = (&self.y, &*k0, &*k1);
-        let s = sum_ranges(self.opts.par, n, &mut self.partials, |lo, hi| {
+        let s = Self::carried_sum(self.opts.par, self.carried, &mut self.partials, |lo, hi| {
             (lo..hi)
                 .map(|i| ((k1[i] - k0[i]).norm() / (atol + rtol * y[i].norm())).powi(2))
                 .sum()
@@ -418,7 +455,7 @@ impl Dopri5 {
         let ha: [f64; M] = std::array::from_fn(|m| h * coef[m].1);
         for_chunks(
             par,
-            &mut self.ytmp,
+            &mut self.ytmp[..self.carried.1],
             #[inline(always)]
             |lo, o| {
                 let n = o.len();
@@ -443,10 +480,11 @@ impl Dopri5 {
         let [k0, k1, k2, k3, k4, k5, _] = &mut self.k;
         let (k0, k2, k3, k4, k5) = (&*k0, &*k2, &*k3, &*k4, &*k5);
         let ha = [h * A71, h * A73, h * A74, h * A75, h * A76];
+        let m = self.carried.1;
         for_chunks2(
             par,
-            &mut self.ytmp,
-            k1,
+            &mut self.ytmp[..m],
+            &mut k1[..m],
             #[inline(always)]
             |lo, o, e| {
                 let n = o.len();
@@ -467,6 +505,7 @@ impl Dopri5 {
     }
 
     fn eval_stage<R: Rhs>(&mut self, rhs: &mut R, t: f64, into: usize) {
+        rhs.complete(&mut self.ytmp);
         rhs.eval(t, &self.ytmp, &mut self.k[into]);
         self.stats.rhs_evals += 1;
     }
@@ -474,9 +513,9 @@ impl Dopri5 {
     fn error_norm(&mut self, h: f64) -> f64 {
         let (atol, rtol, n) = (self.opts.atol, self.opts.rtol, self.y.len());
         let (y, y1, k) = (&self.y, &self.ytmp, &self.k);
-        let s = sum_ranges(
+        let s = Self::carried_sum(
             self.opts.par,
-            n,
+            self.carried,
             &mut self.partials,
             #[inline(always)]
             |lo, hi| {
@@ -498,7 +537,8 @@ impl Dopri5 {
 
     /// Dense output: write y(t) into `out` for t in the last accepted step [from, to]
     /// (fourth-order continuous extension; exact at both ends). Valid until the next
-    /// [`Dopri5::step`].
+    /// [`Dopri5::step`]. Only the carried components are written ([`Rhs::carried`]); call
+    /// [`Rhs::complete`] on `out` for the rest.
     ///
     /// # Panics
     /// If no step has been accepted yet or `out` has the wrong length.
@@ -512,7 +552,7 @@ impl Dopri5 {
         let (y0, y1, k) = (&self.ytmp, &self.y, &self.k);
         for_chunks(
             self.opts.par,
-            out,
+            &mut out[..self.carried.1],
             #[inline(always)]
             |lo, o| {
                 let n = o.len();
@@ -574,6 +614,7 @@ where
                     observe(next, ts, ode.y(), &ode.stats());
                 } else {
                     ode.interpolate(ts, scratch);
+                    rhs.complete(scratch);
                     observe(next, ts, scratch, &ode.stats());
                 }
                 next += 1;
