@@ -1,9 +1,10 @@
 //! Matrix-free Lindblad right-hand side on a dense density matrix.
 //!
 //! dρ/dt = Aρ + ρA† + Σₗ LₗρLₗ†, with the non-Hermitian generator A(t) = −iH(t) − ½ Σₗ Lₗ†Lₗ.
-//! Since ρ is Hermitian, ρA† = (Aρ)†, so the kernel forms X = Aρ + ½ Σₗ LₗρLₗ† and returns
-//! X + X†. Only the sparse operators and one d×d workspace are stored; no d²×d² superoperator is
-//! ever built.
+//! Since ρ is Hermitian, ρA† = (Aρ)†, so the kernel forms X = Aρ (plus half the diagonal jump
+//! terms, which are element-wise) and returns X + X† + Σₗ LₗρLₗ† over the off-diagonal jumps.
+//! Only the sparse operators and one d×d workspace are stored; no d²×d² superoperator is ever
+//! built.
 //!
 //! Layout: ρ is row-major, `rho[r * d + c]` = ⟨r|ρ|c⟩, in the basis order of
 //! [`cavern_model::Space`]. Jump operators must have at most one non-zero per row (true for a, a†,
@@ -11,13 +12,15 @@
 //!
 //! Organisation: the operators of a tensor-product model have few distinct *shifts*
 //! (column − row), so A is stored by diagonals — for each shift s a vector D_s with
-//! (Aρ)ᵣ· += D_s(r) ρ_{r+s,·}. The kernel's state is ρ in a *panel-major* layout (see
-//! [`LindbladRhs::to_panels`]): panel p holds columns p·w … p·w + w − 1 of all rows, so the
-//! w-long segments of consecutive rows are contiguous and every term reads a forward stream.
-//! X is built panel by panel and, inside a panel, row by row: the segment being formed stays in
-//! the innermost cache while each term adds to it. Panels are independent and run in parallel;
-//! each element is computed by the same operations in the same order whatever the thread count,
-//! so results are bit-identical for any number of threads.
+//! (Aρ)ᵣ· += D_s(r) ρ_{r+s,·}. The kernel's state is ρ cut into w×w tiles (see
+//! [`LindbladRhs::to_panels`]): the w-long segments of a column panel are contiguous inside each
+//! tile, and the diagonal and lower tiles lead, so that a Hermitian state can be carried by them
+//! alone ([`LindbladRhs::lower_half_only`]). X is built column panel by column panel and, inside
+//! a panel, row by row: the segment being formed stays in the innermost cache while each term
+//! adds to it. The second pass works tile by tile: tile (I, J) of X plus the adjoint of tile
+//! (J, I), then the jump gathers of that tile. Panels and tiles are independent and run in
+//! parallel; each element is computed by the same operations in the same order whatever the
+//! thread count, so results are bit-identical for any number of threads.
 
 use crate::dopri::Rhs;
 use crate::par::{vectorized, Par};
@@ -81,12 +84,15 @@ pub struct LindbladRhs {
     diag_jumps_complex: Vec<Vec<C64>>,
     shift_jumps: Vec<ShiftJump>,
     general_jumps: Vec<GeneralJump>,
-    /// X = Aρ + ½ΣLρL†, panel-major: panel p holds rows 0..d of columns p·w … p·w + w − 1.
+    /// X = Aρ + ½ Σ (diagonal jumps) ρ (diagonal jumps)†, panel-major: panel p holds rows 0..d of
+    /// columns p·w … p·w + w − 1.
     x: Vec<C64>,
     /// Storage index of tile (i, j) at `i·n + j` (n = d/w; see `tile_index`).
     tiles: Vec<u32>,
     /// Tile (i, j) at each storage index.
     tile_at: Vec<(u32, u32)>,
+    /// Offset of row r of column panel p in the tile layout at `p·d + r` (see `row_at`).
+    row_off: Vec<usize>,
     /// Whether only the diagonal and lower tiles of dρ/dt are written (see
     /// [`LindbladRhs::lower_half_only`]).
     half: bool,
@@ -311,11 +317,16 @@ impl LindbladRhs {
                 tile_at[t] = (i as u32, j as u32);
             }
         }
+        let row_off = (0..n)
+            .flat_map(|p| (0..d).map(move |r| (p, r)))
+            .map(|(p, r)| tiles[(r / w) * n + p] as usize * w * w + (r % w) * w)
+            .collect();
         Ok(Self {
             d,
             w,
             tiles,
             tile_at,
+            row_off,
             half: false,
             coeff: vec![1.0; envelopes.len()],
             envelopes,
@@ -351,8 +362,7 @@ impl LindbladRhs {
     /// Offset of row r of column panel p (w entries) in the tile layout.
     #[inline(always)]
     fn row_at(&self, p: usize, r: usize) -> usize {
-        let (w, n) = (self.w, self.d / self.w);
-        self.tiles[(r / w) * n + p] as usize * w * w + (r % w) * w
+        self.row_off[p * self.d + r]
     }
 
     /// Hilbert-space dimension d.
@@ -471,6 +481,7 @@ impl LindbladRhs {
                             *o = xv + tile_t[jj * w + ii].conj();
                         }
                     }
+                    me.add_jumps(i, j, rho, tile_o);
                 },
             )
         };
@@ -489,17 +500,16 @@ impl LindbladRhs {
         self.x = x;
     }
 
-    /// Panel p of X = A(t)ρ + ½ Σ LρL† (columns p·w … p·w + w − 1), row by row so that the row
+    /// Panel p of X = A(t)ρ + ½ Σ LρL† over the diagonal jumps (columns p·w … p·w + w − 1; the
+    /// off-diagonal jumps are added in the second pass, see `add_jumps`), row by row so that the row
     /// segment being formed stays in the innermost cache while every term adds to it.
     #[inline(always)]
     fn x_panel(&self, p: usize, rho: &[C64], panel: &mut [C64]) {
         let (d, w) = (self.d, self.w);
         let c0 = p * w;
         let cols = c0..c0 + w;
-        let at = |r: usize| {
-            let o = self.row_at(p, r);
-            &rho[o..o + w]
-        };
+        let offs = &self.row_off[p * d..(p + 1) * d];
+        let at = |r: usize| &rho[offs[r]..offs[r] + w];
         let mut fac = [0.0f64; MAX_PANEL];
         let fac = &mut fac[..w];
         let mut fac_row: Option<usize> = None;
@@ -556,7 +566,7 @@ impl LindbladRhs {
                         }
                         let src_row = (r as isize + dg.shift) as usize;
                         if n_act < MAX_ACTIVE {
-                            active[n_act] = (self.row_at(p, src_row), h);
+                            active[n_act] = (offs[src_row], h);
                             n_act += 1;
                         } else {
                             // (−i h)·s = (h·s.im, −h·s.re)
@@ -611,19 +621,29 @@ impl LindbladRhs {
                     }
                 }
             }
-            // off-diagonal jumps: (LρL†)ᵣc = v_r v_c ρ[r + s_r, c + s_c] along column segments
+        }
+    }
+
+    /// Add Σ LρL† of the off-diagonal jumps to tile (I, J) of dρ/dt (row-major w×w):
+    /// (LρL†)ᵣc = v_r v̄_c ρ[k(r), k(c)], gathered along the column segments of each jump.
+    #[inline(always)]
+    fn add_jumps(&self, ti: usize, tj: usize, rho: &[C64], tile: &mut [C64]) {
+        let (d, w) = (self.d, self.w);
+        let (r0, c0) = (ti * w, tj * w);
+        for (ii, o) in tile.chunks_exact_mut(w).enumerate() {
+            let r = r0 + ii;
             for j in &self.shift_jumps {
                 if !j.has[r] {
                     continue;
                 }
-                let wr = 0.5 * j.val[r];
+                let vr = j.val[r];
                 let rr = (r as isize + j.shift[r]) as usize;
-                for &(off, len, sp, soff) in &j.segments[p] {
+                for &(off, len, sp, soff) in &j.segments[tj] {
                     let base = self.row_at(sp, rr) + soff;
                     let src = &rho[base..base + len];
                     let vals = &j.val[c0 + off..c0 + off + len];
-                    for ((o, &vc), s) in xr[off..off + len].iter_mut().zip(vals).zip(src) {
-                        let f = wr * vc;
+                    for ((o, &vc), s) in o[off..off + len].iter_mut().zip(vals).zip(src) {
+                        let f = vr * vc;
                         o.re += s.re * f;
                         o.im += s.im * f;
                     }
@@ -633,12 +653,12 @@ impl LindbladRhs {
                 if !j.has[r] {
                     continue;
                 }
-                let wr = j.val[r] * 0.5;
+                let vr = j.val[r];
                 let rr = j.src[r] as usize;
-                for (o, c) in xr.iter_mut().zip(cols.clone()) {
+                for (o, c) in o.iter_mut().zip(c0..c0 + w) {
                     if j.has[c] {
                         let cc = j.src[c] as usize;
-                        *o += wr * j.val[c].conj() * rho[tile_offset(d, w, rr, cc)];
+                        *o += vr * j.val[c].conj() * rho[tile_offset(d, w, rr, cc)];
                     }
                 }
             }
