@@ -10,19 +10,27 @@
 //! (768 MiB in all, more than any cache here, including the 480 MiB L3 this VM reports) measures the sustainable memory bandwidth, counted as 24 bytes per
 //! element (two reads and one write; write-allocate traffic is not counted, as in STREAM).
 //!
+//! Two paths are timed. *full*: `apply` on the whole matrix, as the steady-state solvers call it.
+//! *lower half*: what the time integrator calls per stage, `Rhs::complete` (mirror the upper
+//! tiles of ρ from the lower ones) followed by `apply` in lower-half mode, which writes only the
+//! diagonal and lower tiles of dρ/dt (d·(d + w)/2 entries, w = panel width).
+//!
 //! For each d the memory-traffic lower bound of one right-hand-side call is
-//! (bytes of ρ read once + bytes of dρ/dt written once) / triad bandwidth = 2·16·d² B / BW, using
-//! the best triad bandwidth at the same thread count. At the end the bench prints a table of
-//! time per call, bound and ratio, and writes it to `target/perf/rhs-summary.md`.
+//! (bytes of ρ read once + bytes of dρ/dt written once) / triad bandwidth, using the best triad
+//! bandwidth at the same thread count: 2·16·d² B / BW for the full path, and 2·16·d(d + w)/2 B /
+//! BW for the lower-half path, whose input and output are only the carried entries. At the end
+//! the bench prints a table of time per call, bound and ratio, and writes it to
+//! `target/perf/rhs-summary.md`.
 //!
 //! ρ and dρ/dt are passed in the kernel's panel-major layout (`LindbladRhs::to_panels`); the
 //! conversion is done once, outside the timed loop.
 //!
 //! Run: `cargo bench --bench rhs` (a few minutes on 2 cores; d = 6144 needs about 2.5 GB).
 
-use cavern_evolve::{LindbladRhs, Par};
+use cavern_evolve::{LindbladRhs, Par, Rhs};
 use cavern_model::{CouplingForm, ModeParams, Network, SiteParams, C64};
-use criterion::{black_box, BenchmarkId, Criterion, SamplingMode, Throughput};
+use criterion::measurement::WallTime;
+use criterion::{black_box, BenchmarkGroup, BenchmarkId, Criterion, SamplingMode, Throughput};
 use rayon::prelude::*;
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
@@ -45,6 +53,10 @@ const LEVELS: usize = 6;
 /// calls the closure during warm-up and then once per sample, so the last `sample_size` entries
 /// are the measurement samples.
 static TIMES: Mutex<BTreeMap<String, Vec<f64>>> = Mutex::new(BTreeMap::new());
+
+/// Bytes one call must move at least (read its input once, write its output once), keyed by the
+/// group and dimension (`rhs/d384`, `rhs-lower/d384`).
+static BYTES: Mutex<BTreeMap<String, u64>> = Mutex::new(BTreeMap::new());
 
 fn record(key: &str, per_call: f64) {
     TIMES
@@ -249,6 +261,26 @@ fn rhs_samples(d: usize) -> usize {
     }
 }
 
+/// Sampling of the right-hand-side group `name` of dimension `d` that moves `bytes` per call at
+/// best (recorded for the summary).
+fn configure(name: &str, group: &mut BenchmarkGroup<'_, WallTime>, d: usize, bytes: u64) {
+    BYTES
+        .lock()
+        .expect("byte table poisoned")
+        .insert(format!("{name}/d{d}"), bytes);
+    group
+        .sample_size(rhs_samples(d))
+        .throughput(Throughput::Bytes(bytes))
+        .warm_up_time(Duration::from_millis(500));
+    if d >= 1536 {
+        group
+            .sampling_mode(SamplingMode::Flat)
+            .measurement_time(Duration::from_secs(if d >= 6144 { 5 } else { 3 }));
+    } else {
+        group.measurement_time(Duration::from_secs(2));
+    }
+}
+
 fn bench_rhs(c: &mut Criterion) {
     for &n in &SPINS {
         let d = (1 << n) * LEVELS;
@@ -277,19 +309,7 @@ fn bench_rhs(c: &mut Criterion) {
         drop(drho);
 
         let mut group = c.benchmark_group("rhs");
-        group
-            .sample_size(rhs_samples(d))
-            .throughput(Throughput::Bytes(2 * 16 * (d * d) as u64));
-        if d >= 1536 {
-            group
-                .sampling_mode(SamplingMode::Flat)
-                .warm_up_time(Duration::from_millis(500))
-                .measurement_time(Duration::from_secs(if d >= 6144 { 5 } else { 3 }));
-        } else {
-            group
-                .warm_up_time(Duration::from_millis(500))
-                .measurement_time(Duration::from_secs(2));
-        }
+        configure("rhs", &mut group, d, 2 * 16 * (d * d) as u64);
         for &t in &THREADS {
             let p = pool(t);
             let key = format!("rhs/d{d}/{t}t");
@@ -299,6 +319,36 @@ fn bench_rhs(c: &mut Criterion) {
                         let start = Instant::now();
                         for _ in 0..iters {
                             rhs.apply(black_box(0.0), black_box(&rho), &mut out);
+                        }
+                        let e = start.elapsed();
+                        record(&key, e.as_secs_f64() / iters as f64);
+                        e
+                    })
+                })
+            });
+        }
+        group.finish();
+        // the integrator's path: mirror the upper tiles, then write the lower ones
+        let mut lower = LindbladRhs::new(&me, Par::Rayon)
+            .expect("right-hand side")
+            .lower_half_only();
+        let mut group = c.benchmark_group("rhs-lower");
+        configure(
+            "rhs-lower",
+            &mut group,
+            d,
+            2 * 16 * lower.lower_len().1 as u64,
+        );
+        for &t in &THREADS {
+            let p = pool(t);
+            let key = format!("rhs-lower/d{d}/{t}t");
+            group.bench_function(BenchmarkId::new(format!("d{d}"), format!("{t}t")), |bch| {
+                bch.iter_custom(|iters| {
+                    p.install(|| {
+                        let start = Instant::now();
+                        for _ in 0..iters {
+                            lower.complete(black_box(&mut rho));
+                            lower.apply(black_box(0.0), black_box(&rho), &mut out);
                         }
                         let e = start.elapsed();
                         record(&key, e.as_secs_f64() / iters as f64);
@@ -355,43 +405,52 @@ fn summary() -> String {
     }
     let _ = writeln!(
         s,
-        "\nRHS: bound = 2·16·d² B (read ρ once, write dρ/dt once) / best triad bandwidth at the \
-         same thread count; effective = 2·16·d² B / median time. Ratios and speedups are given \
-         for the median time and, after the semicolon, for the minimum time.\n"
+        "\nRHS: bound = bytes of the input read once + bytes of the output written once, / best \
+         triad bandwidth at the same thread count: 2·16·d² B for the full path, 2·16·d(d + w)/2 B \
+         for the lower-half path (w = panel width); effective = those bytes / median time. Ratios \
+         and speedups are given for the median time and, after the semicolon, for the minimum \
+         time.\n"
     );
     let _ = writeln!(
         s,
-        "| d | spins | ρ (MB) | threads | time/call median | min | effective GB/s | bound | measured/bound | speedup 1→2 |"
+        "| d | spins | ρ (MB) | path | threads | time/call median | min | effective GB/s | bound | measured/bound | speedup 1→2 |"
     );
-    let _ = writeln!(s, "|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|");
+    let _ = writeln!(s, "|---:|---:|---:|---|---:|---:|---:|---:|---:|---:|---:|");
+    let bytes_of = BYTES.lock().expect("byte table poisoned").clone();
     for &n in &SPINS {
         let d = (1usize << n) * LEVELS;
-        let bytes = 2.0 * 16.0 * (d * d) as f64;
-        let one = stats_of_last(&format!("rhs/d{d}/1t"), rhs_samples(d));
-        for &t in &THREADS {
-            let Some((m, lo, k)) = stats_of_last(&format!("rhs/d{d}/{t}t"), rhs_samples(d)) else {
+        for (group, path) in [("rhs", "full"), ("rhs-lower", "lower half")] {
+            let Some(&bytes) = bytes_of.get(&format!("{group}/d{d}")) else {
                 continue;
             };
-            let (bound, ratio) = match bw.get(&t) {
-                Some(&g) => {
-                    let b = bytes / (g * 1e9);
-                    (fmt_time(b), format!("{:.2}; {:.2}", m / b, lo / b))
-                }
-                None => ("(no triad run)".into(), "–".into()),
-            };
-            let speedup = match (t, one) {
-                (1, _) => "".into(),
-                (_, Some((om, olo, _))) => format!("{:.2}×; {:.2}×", om / m, olo / lo),
-                _ => "–".into(),
-            };
-            let _ = writeln!(
-                s,
-                "| {d} | {n} | {:.1} | {t} | {} (n={k}) | {} | {:.2} | {bound} | {ratio} | {speedup} |",
-                16.0 * (d * d) as f64 / 1e6,
-                fmt_time(m),
-                fmt_time(lo),
-                bytes / m / 1e9,
-            );
+            let bytes = bytes as f64;
+            let one = stats_of_last(&format!("{group}/d{d}/1t"), rhs_samples(d));
+            for &t in &THREADS {
+                let Some((m, lo, k)) = stats_of_last(&format!("{group}/d{d}/{t}t"), rhs_samples(d))
+                else {
+                    continue;
+                };
+                let (bound, ratio) = match bw.get(&t) {
+                    Some(&g) => {
+                        let b = bytes / (g * 1e9);
+                        (fmt_time(b), format!("{:.2}; {:.2}", m / b, lo / b))
+                    }
+                    None => ("(no triad run)".into(), "–".into()),
+                };
+                let speedup = match (t, one) {
+                    (1, _) => "".into(),
+                    (_, Some((om, olo, _))) => format!("{:.2}×; {:.2}×", om / m, olo / lo),
+                    _ => "–".into(),
+                };
+                let _ = writeln!(
+                    s,
+                    "| {d} | {n} | {:.1} | {path} | {t} | {} (n={k}) | {} | {:.2} | {bound} | {ratio} | {speedup} |",
+                    16.0 * (d * d) as f64 / 1e6,
+                    fmt_time(m),
+                    fmt_time(lo),
+                    bytes / m / 1e9,
+                );
+            }
         }
     }
     s
