@@ -2,11 +2,14 @@
 //!
 //! dρ/dt = Aρ + ρA† + Σₗ LₗρLₗ†, with the non-Hermitian generator A(t) = −iH(t) − ½ Σₗ Lₗ†Lₗ.
 //! Since ρ is Hermitian, ρA† = (Aρ)†, so the kernel forms X = Aρ + ½ Σₗ LₗρLₗ† and returns
-//! X + X†. When only the lower tiles are wanted ([`LindbladRhs::lower_half_only`]), the gathers
-//! of the off-diagonal jumps move from X (where every tile needs them) to the second pass, at
-//! full weight on the tiles written: half the gathers.
-//! Only the sparse operators and one d×d workspace are stored; no d²×d² superoperator is ever
-//! built.
+//! X + X†. No d²×d² superoperator is ever built.
+//!
+//! Two ways of forming X + X†. For the whole matrix (the steady-state solvers), X is written to
+//! one d×d workspace and a second pass adds the transposed tiles. When only the diagonal and lower
+//! tiles are wanted ([`LindbladRhs::lower_half_only`], the time integrator), each output tile
+//! (I, J) is formed on its own: X(I, J) straight into the output, X(J, I) into a per-thread w×w
+//! scratch whose adjoint is added, then the gathers of the off-diagonal jumps at full weight on
+//! that tile only (half the gathers, and no d×d workspace).
 //!
 //! Layout: ρ is row-major, `rho[r * d + c]` = ⟨r|ρ|c⟩, in the basis order of
 //! [`cavern_model::Space`]. Jump operators must have at most one non-zero per row (true for a, a†,
@@ -103,6 +106,11 @@ pub struct LindbladRhs {
 
 /// Largest panel width.
 const MAX_PANEL: usize = 128;
+
+thread_local! {
+    /// Per-thread w×w tile of X for the lower-half kernel (allocated once per thread).
+    static TILE_SCRATCH: std::cell::RefCell<Vec<C64>> = const { std::cell::RefCell::new(Vec::new()) };
+}
 
 /// Columns summed together in registers by the off-diagonal pass.
 const CHUNK: usize = 8;
@@ -351,6 +359,8 @@ impl LindbladRhs {
     /// still be complete.
     pub fn lower_half_only(mut self) -> Self {
         self.half = true;
+        // the tile-by-tile kernel of this mode needs no d×d workspace
+        self.x = Vec::new();
         self
     }
 
@@ -446,6 +456,41 @@ impl LindbladRhs {
         for (c, env) in self.coeff.iter_mut().zip(&self.envelopes) {
             *c = env.value(t);
         }
+        let me = &*self;
+        let parallel = self.par == Par::Rayon && d >= 64;
+        if self.half {
+            // tile by tile, no d×d workspace: tile (I, J) of X goes straight into the output and
+            // tile (J, I) into a per-thread w×w scratch whose adjoint is then added
+            let n_out = self.lower_len().1;
+            let tile_at = &self.tile_at;
+            let fused = |t: usize, tile_o: &mut [C64]| {
+                TILE_SCRATCH.with(|cell| {
+                    let mut buf = cell.borrow_mut();
+                    if buf.len() < w * w {
+                        // once per thread (and when a larger panel first appears)
+                        buf.resize(w * w, C64::new(0.0, 0.0));
+                    }
+                    let (i, j) = (tile_at[t].0 as usize, tile_at[t].1 as usize);
+                    let scratch = &mut buf[..w * w];
+                    vectorized(
+                        #[inline(always)]
+                        || me.fused_tile(i, j, rho, tile_o, scratch),
+                    )
+                })
+            };
+            if parallel {
+                out[..n_out]
+                    .par_chunks_mut(w * w)
+                    .enumerate()
+                    .for_each(|(t, o)| fused(t, o));
+            } else {
+                out[..n_out]
+                    .chunks_mut(w * w)
+                    .enumerate()
+                    .for_each(|(t, o)| fused(t, o));
+            }
+            return;
+        }
         // split the borrow: x is written, everything else read
         let mut x = std::mem::take(&mut self.x);
         let me = &*self;
@@ -455,7 +500,6 @@ impl LindbladRhs {
                 || me.x_panel(p, rho, panel),
             )
         };
-        let parallel = self.par == Par::Rayon && d >= 64;
         if parallel {
             x.par_chunks_mut(d * w)
                 .enumerate()
@@ -469,7 +513,6 @@ impl LindbladRhs {
         // rows J of panel I of X (both contiguous w×w blocks)
         let xs = &x;
         let tile_at = &self.tile_at;
-        let half = self.half;
         let sym = |t: usize, tile_o: &mut [C64]| {
             vectorized(
                 #[inline(always)]
@@ -484,27 +527,45 @@ impl LindbladRhs {
                             *o = xv + tile_t[jj * w + ii].conj();
                         }
                     }
-                    if half {
-                        for (ii, o) in tile_o.chunks_exact_mut(w).enumerate() {
-                            me.add_jumps(i * w + ii, j, 1.0, rho, o);
-                        }
-                    }
                 },
             )
         };
-        let n_out = if self.half { self.lower_len().1 } else { d * d };
         if parallel {
-            out[..n_out]
-                .par_chunks_mut(w * w)
+            out.par_chunks_mut(w * w)
                 .enumerate()
                 .for_each(|(t, o)| sym(t, o));
         } else {
-            out[..n_out]
-                .chunks_mut(w * w)
+            out.chunks_mut(w * w)
                 .enumerate()
                 .for_each(|(t, o)| sym(t, o));
         }
         self.x = x;
+    }
+
+    /// Tile (I, J) of dρ/dt in lower-half mode: X(I, J) + X(J, I)† + Σ LρL† (off-diagonal jumps
+    /// at full weight; X leaves them out in this mode), with `scratch` (w²) for X(J, I).
+    #[inline(always)]
+    fn fused_tile(&self, i: usize, j: usize, rho: &[C64], o: &mut [C64], scratch: &mut [C64]) {
+        let w = self.w;
+        self.x_rows(i, j * w, rho, scratch);
+        if i == j {
+            // X(I, I) is in the scratch: o = X + X†, exactly Hermitian
+            for a in 0..w {
+                for (b, v) in o[a * w..(a + 1) * w].iter_mut().enumerate() {
+                    *v = scratch[a * w + b] + scratch[b * w + a].conj();
+                }
+            }
+        } else {
+            self.x_rows(j, i * w, rho, o);
+            for a in 0..w {
+                for (b, v) in o[a * w..(a + 1) * w].iter_mut().enumerate() {
+                    *v += scratch[b * w + a].conj();
+                }
+            }
+        }
+        for (a, row) in o.chunks_exact_mut(w).enumerate() {
+            self.add_jumps(i * w + a, j, 1.0, rho, row);
+        }
     }
 
     /// Panel p of X = A(t)ρ + ½ Σ LρL† (columns p·w … p·w + w − 1; in lower-half mode without the
@@ -512,6 +573,12 @@ impl LindbladRhs {
     /// segment being formed stays in the innermost cache while every term adds to it.
     #[inline(always)]
     fn x_panel(&self, p: usize, rho: &[C64], panel: &mut [C64]) {
+        self.x_rows(p, 0, rho, panel);
+    }
+
+    /// Rows r₀ … r₀ + rows.len()/w − 1 of panel p of X (see `x_panel`) into `rows`.
+    #[inline(always)]
+    fn x_rows(&self, p: usize, r0: usize, rho: &[C64], rows: &mut [C64]) {
         let (d, w) = (self.d, self.w);
         let c0 = p * w;
         let cols = c0..c0 + w;
@@ -521,7 +588,7 @@ impl LindbladRhs {
         let fac = &mut fac[..w];
         let mut fac_row: Option<usize> = None;
         let mut active = [(0usize, 0.0f64); MAX_ACTIVE];
-        for (r, xr) in panel.chunks_mut(w).enumerate() {
+        for (r, xr) in (r0..).zip(rows.chunks_mut(w)) {
             // main diagonal of A and diagonal jumps, element-wise on row r of ρ
             let mut a_rr = C64::new(0.0, 0.0);
             for (m, &c) in self.main.iter().zip(&self.coeff) {
