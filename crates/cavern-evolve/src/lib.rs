@@ -78,7 +78,7 @@ pub enum EvolveError {
 /// Bytes the density-matrix evolution allocates for Hilbert-space dimension `d`: the integrator's
 /// nine d×d vectors, the initial state in both layouts, one interpolation buffer and one
 /// row-major sample (thirteen d×d complex matrices in all; the right-hand side works tile by tile
-/// and needs only a w×w scratch per thread).
+/// with a w×w scratch per thread).
 pub fn density_workspace_bytes(d: usize) -> u128 {
     13u128 * (d as u128) * (d as u128) * std::mem::size_of::<C64>() as u128
 }

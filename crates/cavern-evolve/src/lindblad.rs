@@ -1,15 +1,15 @@
 //! Matrix-free Lindblad right-hand side on a dense density matrix.
 //!
 //! dρ/dt = Aρ + ρA† + Σₗ LₗρLₗ†, with the non-Hermitian generator A(t) = −iH(t) − ½ Σₗ Lₗ†Lₗ.
-//! Since ρ is Hermitian, ρA† = (Aρ)†, so the kernel forms X = Aρ + ½ Σₗ LₗρLₗ† and returns
-//! X + X†. No d²×d² superoperator is ever built.
+//! Since ρ is Hermitian, ρA† = (Aρ)†: with X = Aρ (plus half the element-wise diagonal-jump
+//! terms), dρ/dt = X + X† + Σ LρL† over the off-diagonal jumps. No d²×d² superoperator and no
+//! d×d workspace is ever built.
 //!
-//! Two ways of forming X + X†. For the whole matrix (the steady-state solvers), X is written to
-//! one d×d workspace and a second pass adds the transposed tiles. When only the diagonal and lower
-//! tiles are wanted ([`LindbladRhs::lower_half_only`], the time integrator), each output tile
-//! (I, J) is formed on its own: X(I, J) straight into the output, X(J, I) into a per-thread w×w
-//! scratch whose adjoint is added, then the gathers of the off-diagonal jumps at full weight on
-//! that tile only (half the gathers, and no d×d workspace).
+//! Each output tile (I, J) of the diagonal and lower tiles is formed on its own: X(I, J) straight
+//! into the output, X(J, I) into a per-thread w×w scratch whose adjoint is added, then the jump
+//! gathers of that tile. The upper tiles are the adjoints of the lower ones: the time integrator
+//! carries only the lower tiles ([`LindbladRhs::lower_half_only`]); for the whole matrix (the
+//! steady-state solvers) they are mirrored at the end, so the result is exactly Hermitian.
 //!
 //! Layout: ρ is row-major, `rho[r * d + c]` = ⟨r|ρ|c⟩, in the basis order of
 //! [`cavern_model::Space`]. Jump operators must have at most one non-zero per row (true for a, a†,
@@ -71,7 +71,7 @@ struct GeneralJump {
     has: Vec<bool>,
 }
 
-/// The Lindblad right-hand side with its workspace. Implements [`Rhs`] on vec(ρ) (row-major).
+/// The Lindblad right-hand side. Implements [`Rhs`] on vec(ρ) (row-major).
 pub struct LindbladRhs {
     d: usize,
     /// Panel width w.
@@ -89,9 +89,6 @@ pub struct LindbladRhs {
     diag_jumps_complex: Vec<Vec<C64>>,
     shift_jumps: Vec<ShiftJump>,
     general_jumps: Vec<GeneralJump>,
-    /// X = Aρ + ½ Σ LρL† (in lower-half mode the off-diagonal jumps are left out), panel-major:
-    /// panel p holds rows 0..d of columns p·w … p·w + w − 1.
-    x: Vec<C64>,
     /// Storage index of tile (i, j) at `i·n + j` (n = d/w; see `tile_index`).
     tiles: Vec<u32>,
     /// Tile (i, j) at each storage index.
@@ -346,7 +343,6 @@ impl LindbladRhs {
             diag_jumps_complex,
             shift_jumps,
             general_jumps,
-            x: vec![C64::new(0.0, 0.0); d * d],
             par,
         })
     }
@@ -359,8 +355,6 @@ impl LindbladRhs {
     /// still be complete.
     pub fn lower_half_only(mut self) -> Self {
         self.half = true;
-        // the tile-by-tile kernel of this mode needs no d×d workspace
-        self.x = Vec::new();
         self
     }
 
@@ -390,11 +384,6 @@ impl LindbladRhs {
     /// Number of distinct off-diagonals of A (each costs one streaming pass per panel).
     pub fn n_diagonals(&self) -> usize {
         self.diagonals.len()
-    }
-
-    /// Bytes of the workspace this right-hand side allocates for dimension `d` (one d×d matrix).
-    pub fn workspace_bytes(d: usize) -> usize {
-        d * d * std::mem::size_of::<C64>()
     }
 
     /// Stored non-zeros of A and of the jump operators (for reports).
@@ -445,8 +434,10 @@ impl LindbladRhs {
         from_panels(self.d, panels, row_major);
     }
 
-    /// dρ/dt at time t into `out`, both in the panel-major layout (see [`LindbladRhs::to_panels`]):
-    /// panel p holds columns p·w … p·w + w − 1 of every row, row after row.
+    /// dρ/dt at time t into `out`, both in the tile layout (see [`LindbladRhs::to_panels`]). ρ
+    /// must be Hermitian. In lower-half mode ([`LindbladRhs::lower_half_only`]) only the diagonal
+    /// and lower tiles of `out` are written; otherwise the upper tiles are then mirrored from
+    /// them, so that the result is exactly Hermitian.
     ///
     /// # Panics
     /// If `rho` or `out` is not d² long.
@@ -458,92 +449,43 @@ impl LindbladRhs {
         }
         let me = &*self;
         let parallel = self.par == Par::Rayon && d >= 64;
-        if self.half {
-            // tile by tile, no d×d workspace: tile (I, J) of X goes straight into the output and
-            // tile (J, I) into a per-thread w×w scratch whose adjoint is then added
-            let n_out = self.lower_len().1;
-            let tile_at = &self.tile_at;
-            let fused = |t: usize, tile_o: &mut [C64]| {
-                TILE_SCRATCH.with(|cell| {
-                    let mut buf = cell.borrow_mut();
-                    if buf.len() < w * w {
-                        // once per thread (and when a larger panel first appears)
-                        buf.resize(w * w, C64::new(0.0, 0.0));
-                    }
-                    let (i, j) = (tile_at[t].0 as usize, tile_at[t].1 as usize);
-                    let scratch = &mut buf[..w * w];
-                    vectorized(
-                        #[inline(always)]
-                        || me.fused_tile(i, j, rho, tile_o, scratch),
-                    )
-                })
-            };
-            if parallel {
-                out[..n_out]
-                    .par_chunks_mut(w * w)
-                    .enumerate()
-                    .for_each(|(t, o)| fused(t, o));
-            } else {
-                out[..n_out]
-                    .chunks_mut(w * w)
-                    .enumerate()
-                    .for_each(|(t, o)| fused(t, o));
-            }
-            return;
-        }
-        // split the borrow: x is written, everything else read
-        let mut x = std::mem::take(&mut self.x);
-        let me = &*self;
-        let fill = |p: usize, panel: &mut [C64]| {
-            vectorized(
-                #[inline(always)]
-                || me.x_panel(p, rho, panel),
-            )
-        };
-        if parallel {
-            x.par_chunks_mut(d * w)
-                .enumerate()
-                .for_each(|(p, panel)| fill(p, panel));
-        } else {
-            x.chunks_mut(d * w)
-                .enumerate()
-                .for_each(|(p, panel)| fill(p, panel));
-        }
-        // out = X + X†: tile (I, J) of out takes rows I of panel J of X plus the adjoint of
-        // rows J of panel I of X (both contiguous w×w blocks)
-        let xs = &x;
+        // tile by tile, no d×d workspace: tile (I, J) of X goes straight into the output and
+        // tile (J, I) into a per-thread w×w scratch whose adjoint is then added
+        let n_out = self.lower_len().1;
         let tile_at = &self.tile_at;
-        let sym = |t: usize, tile_o: &mut [C64]| {
-            vectorized(
-                #[inline(always)]
-                || {
-                    let (i, j) = (tile_at[t].0 as usize, tile_at[t].1 as usize);
-                    let tile_x = &xs[j * d * w + i * w * w..][..w * w];
-                    let tile_t = &xs[i * d * w + j * w * w..][..w * w];
-                    for ii in 0..w {
-                        let o = &mut tile_o[ii * w..(ii + 1) * w];
-                        let a = &tile_x[ii * w..(ii + 1) * w];
-                        for (jj, (o, &xv)) in o.iter_mut().zip(a).enumerate() {
-                            *o = xv + tile_t[jj * w + ii].conj();
-                        }
-                    }
-                },
-            )
+        let fused = |t: usize, tile_o: &mut [C64]| {
+            TILE_SCRATCH.with(|cell| {
+                let mut buf = cell.borrow_mut();
+                if buf.len() < w * w {
+                    // once per thread (and when a larger panel first appears)
+                    buf.resize(w * w, C64::new(0.0, 0.0));
+                }
+                let (i, j) = (tile_at[t].0 as usize, tile_at[t].1 as usize);
+                let scratch = &mut buf[..w * w];
+                vectorized(
+                    #[inline(always)]
+                    || me.fused_tile(i, j, rho, tile_o, scratch),
+                )
+            })
         };
         if parallel {
-            out.par_chunks_mut(w * w)
+            out[..n_out]
+                .par_chunks_mut(w * w)
                 .enumerate()
-                .for_each(|(t, o)| sym(t, o));
+                .for_each(|(t, o)| fused(t, o));
         } else {
-            out.chunks_mut(w * w)
+            out[..n_out]
+                .chunks_mut(w * w)
                 .enumerate()
-                .for_each(|(t, o)| sym(t, o));
+                .for_each(|(t, o)| fused(t, o));
         }
-        self.x = x;
+        if !self.half {
+            self.mirror_upper(out);
+        }
     }
 
-    /// Tile (I, J) of dρ/dt in lower-half mode: X(I, J) + X(J, I)† + Σ LρL† (off-diagonal jumps
-    /// at full weight; X leaves them out in this mode), with `scratch` (w²) for X(J, I).
+    /// Tile (I, J), I ≥ J, of dρ/dt: X(I, J) + X(J, I)† + Σ LρL† over the off-diagonal jumps,
+    /// with `scratch` (w²) for X(J, I).
     #[inline(always)]
     fn fused_tile(&self, i: usize, j: usize, rho: &[C64], o: &mut [C64], scratch: &mut [C64]) {
         let w = self.w;
@@ -564,19 +506,14 @@ impl LindbladRhs {
             }
         }
         for (a, row) in o.chunks_exact_mut(w).enumerate() {
-            self.add_jumps(i * w + a, j, 1.0, rho, row);
+            self.add_jumps(i * w + a, j, rho, row);
         }
     }
 
-    /// Panel p of X = A(t)ρ + ½ Σ LρL† (columns p·w … p·w + w − 1; in lower-half mode without the
-    /// off-diagonal jumps, which the second pass adds), row by row so that the row
-    /// segment being formed stays in the innermost cache while every term adds to it.
-    #[inline(always)]
-    fn x_panel(&self, p: usize, rho: &[C64], panel: &mut [C64]) {
-        self.x_rows(p, 0, rho, panel);
-    }
-
-    /// Rows r₀ … r₀ + rows.len()/w − 1 of panel p of X (see `x_panel`) into `rows`.
+    /// Rows r₀ … r₀ + rows.len()/w − 1 of column panel p of X = A(t)ρ + ½ Σ LρL† over the
+    /// diagonal jumps (columns p·w … p·w + w − 1; the off-diagonal jumps are added to the
+    /// output tiles at full weight, see `fused_tile`), row by row so that the row segment being
+    /// formed stays in the innermost cache while every term adds to it.
     #[inline(always)]
     fn x_rows(&self, p: usize, r0: usize, rho: &[C64], rows: &mut [C64]) {
         let (d, w) = (self.d, self.w);
@@ -695,24 +632,20 @@ impl LindbladRhs {
                     }
                 }
             }
-            if !self.half {
-                self.add_jumps(r, p, 0.5, rho, xr);
-            }
         }
     }
 
-    /// Add `weight`·Σ LρL† of the off-diagonal jumps to `o`, row r of column panel p (w
-    /// entries): (LρL†)ᵣc = v_r v̄_c ρ[k(r), k(c)], gathered along the column segments of each
-    /// jump.
+    /// Add Σ LρL† of the off-diagonal jumps to `o`, row r of column panel p (w entries):
+    /// (LρL†)ᵣc = v_r v̄_c ρ[k(r), k(c)], gathered along the column segments of each jump.
     #[inline(always)]
-    fn add_jumps(&self, r: usize, p: usize, weight: f64, rho: &[C64], o: &mut [C64]) {
+    fn add_jumps(&self, r: usize, p: usize, rho: &[C64], o: &mut [C64]) {
         let (d, w) = (self.d, self.w);
         let c0 = p * w;
         for j in &self.shift_jumps {
             if !j.has[r] {
                 continue;
             }
-            let vr = weight * j.val[r];
+            let vr = j.val[r];
             let rr = (r as isize + j.shift[r]) as usize;
             for &(off, len, sp, soff) in &j.segments[p] {
                 let base = self.row_at(sp, rr) + soff;
@@ -729,7 +662,7 @@ impl LindbladRhs {
             if !j.has[r] {
                 continue;
             }
-            let vr = j.val[r] * weight;
+            let vr = j.val[r];
             let rr = j.src[r] as usize;
             for (o, c) in o.iter_mut().zip(c0..c0 + w) {
                 if j.has[c] {
@@ -739,26 +672,9 @@ impl LindbladRhs {
             }
         }
     }
-}
 
-impl Rhs for LindbladRhs {
-    fn len(&self) -> usize {
-        self.d * self.d
-    }
-    fn eval(&mut self, t: f64, y: &[C64], dy: &mut [C64]) {
-        self.apply(t, y, dy);
-    }
-    fn carried(&self) -> (usize, usize) {
-        if self.half {
-            self.lower_len()
-        } else {
-            (self.d * self.d, self.d * self.d)
-        }
-    }
-    fn complete(&self, y: &mut [C64]) {
-        if !self.half {
-            return;
-        }
+    /// Fill the strictly upper tiles of `y` (tile layout) with the adjoints of the lower ones.
+    fn mirror_upper(&self, y: &mut [C64]) {
         // upper tile (I, J), I < J, = adjoint of lower tile (J, I)
         let (w, n) = (self.w, self.d / self.w);
         let n_low = self.lower_len().1;
@@ -788,6 +704,27 @@ impl Rhs for LindbladRhs {
             up.chunks_mut(w * w)
                 .enumerate()
                 .for_each(|(k, t)| fill(k, t));
+        }
+    }
+}
+
+impl Rhs for LindbladRhs {
+    fn len(&self) -> usize {
+        self.d * self.d
+    }
+    fn eval(&mut self, t: f64, y: &[C64], dy: &mut [C64]) {
+        self.apply(t, y, dy);
+    }
+    fn carried(&self) -> (usize, usize) {
+        if self.half {
+            self.lower_len()
+        } else {
+            (self.d * self.d, self.d * self.d)
+        }
+    }
+    fn complete(&self, y: &mut [C64]) {
+        if self.half {
+            self.mirror_upper(y);
         }
     }
 }

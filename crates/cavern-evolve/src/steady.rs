@@ -13,8 +13,8 @@
 //! - [`steady_state_gmres`]: restarted GMRES(m) (Y. Saad & M. H. Schultz, SIAM J. Sci. Stat.
 //!   Comput. 7, 856 (1986)), matrix-free: 𝓛 is applied by [`LindbladRhs`], never as a matrix.
 //!   Right-preconditioned by default with the exact inverse of the no-jump part Kρ + ρK†
-//!   ([`GmresPreconditioner`]). Memory: about m + 6 d×d complex matrices (Krylov basis, iterate,
-//!   work vectors and the kernel's workspace), plus 6 for the no-jump preconditioner (1 for the
+//!   ([`GmresPreconditioner`]). Memory: about m + 5 d×d complex matrices (Krylov basis, iterate,
+//!   work vectors), plus 6 for the no-jump preconditioner (1 for the
 //!   diagonal one).
 //! - [`steady_state_evolve`]: the fallback: Dormand–Prince time evolution until ρ stops changing.
 //! - [`steady_state`]: direct when d² is small enough, otherwise GMRES, then evolution.
@@ -369,7 +369,8 @@ pub struct GmresOptions {
 }
 
 /// Bytes GMRES allocates for dimension `d` with `opts`: the Krylov basis (restart + 1 vectors),
-/// iterate, right-hand side, two work vectors, the kernel's workspace and the start guess (6),
+/// iterate, right-hand side, two work vectors and the start guess (5; the kernel needs no d×d
+/// workspace),
 /// and the preconditioner (6 d×d matrices for the no-jump one, 1 for the diagonal one), each
 /// d² complex numbers.
 pub fn gmres_workspace_bytes(d: usize, opts: &GmresOptions) -> u128 {
@@ -377,13 +378,13 @@ pub fn gmres_workspace_bytes(d: usize, opts: &GmresOptions) -> u128 {
         GmresPreconditioner::NoJump => 6,
         GmresPreconditioner::Diagonal => 1,
     };
-    (opts.restart as u128 + 1 + 6 + pre) * (d as u128) * (d as u128) * 16
+    (opts.restart as u128 + 1 + 5 + pre) * (d as u128) * (d as u128) * 16
 }
 
 /// Bytes the evolution fallback allocates for dimension `d`: the integrator's nine vectors, the
-/// kernel's workspace, the state and its copy (12 d×d complex matrices).
+/// state and its copy (11 d×d complex matrices).
 pub fn evolution_workspace_bytes(d: usize) -> u128 {
-    12 * (d as u128) * (d as u128) * 16
+    11 * (d as u128) * (d as u128) * 16
 }
 
 fn check_workspace(
